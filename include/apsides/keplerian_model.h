@@ -1,0 +1,115 @@
+// The radial-velocity model: a sum of Keplerian orbits, a zero point and a jitter per
+// instrument, and an optional linear or quadratic trend; and its Gaussian likelihood.
+//
+// Conventions (pinned by tests/keplerian_model_test.cpp, CHECKS.md section 8):
+//   v(t) = gamma_inst + trend(t) + sum_planets K [cos(nu + omega) + e cos omega],
+//   nu the true anomaly from Kepler's equation M = E - e sin E, omega the argument of
+//   periastron of the STAR's orbit (omega_planet = omega_star + pi), v > 0 receding.
+//   The planet's inferior conjunction (transit) is at nu = pi/2 - omega.
+//   Times are days relative to the data's reference epoch (see data.h).
+//   Trend: c1 (t - t_ref) + c2 (t - t_ref)^2, t_ref the data's reference epoch.
+//
+// Likelihood: ln L = -1/2 sum_i [ r_i^2 / (s_i^2 + j^2) + ln(2 pi (s_i^2 + j^2)) ],
+//   r_i the residual, s_i the stated uncertainty, j the jitter of point i's instrument.
+#pragma once
+
+#include <cstddef>
+#include <span>
+#include <string>
+#include <vector>
+
+#include "apsides/data.h"
+
+namespace apsides {
+
+// One planet in the sampling coordinates.
+struct Planet {
+  double period_days = 0.0;
+  double semi_amplitude_m_s = 0.0;
+  double sqrt_e_cos_omega = 0.0;   // sqrt(e) cos(omega_star)
+  double sqrt_e_sin_omega = 0.0;   // sqrt(e) sin(omega_star)
+  double t_conj_days = 0.0;        // time of inferior conjunction, days after reference epoch
+
+  double ecc() const;        // e = h^2 + k^2
+  double omega_rad() const;  // atan2(k, h), in (-pi, pi]; 0 for a circular orbit
+  static Planet from_elements(double period_days, double semi_amplitude_m_s, double ecc,
+                              double omega_rad, double t_conj_days);
+};
+
+// Time conversions (all times in the same frame, days).
+// Mean anomaly at conjunction (nu = pi/2 - omega).
+double mean_anomaly_at_conjunction(double ecc, double omega_rad);
+double time_of_periastron(double period_days, double ecc, double omega_rad, double t_conj_days);
+double time_of_conjunction(double period_days, double ecc, double omega_rad, double t_peri_days);
+// Time of the secondary eclipse (occultation, nu = 3 pi/2 - omega) after `t_peri_days`.
+double time_of_occultation(double period_days, double ecc, double omega_rad, double t_peri_days);
+// Mean anomaly (rad, in [0, 2 pi)) at time t.
+double mean_anomaly_at(const Planet& planet, double t_days);
+
+// Velocity of the star due to one planet at time t (scalar reference implementation).
+double planet_velocity(const Planet& planet, double t_days);
+
+// Which parameters the model has and where they sit in the parameter vector theta:
+//   [planet 0: P, K, sqrt(e)cos w, sqrt(e)sin w, t_conj] [planet 1: ...] ...
+//   [instrument 0: offset, jitter] [instrument 1: ...] ... [trend c1, c2]
+// Without jitters (fit_jitter = false) instruments have only an offset.
+enum class Trend { kNone = 0, kLinear = 1, kQuadratic = 2 };
+std::string to_string(Trend trend);
+Trend parse_trend(const std::string& text, const std::string& where);
+
+struct ModelLayout {
+  int n_planets = 0;
+  int n_instruments = 1;
+  Trend trend = Trend::kNone;
+  bool fit_jitter = true;
+
+  static constexpr int kPlanetParams = 5;
+  int per_instrument() const { return fit_jitter ? 2 : 1; }
+  int trend_order() const { return static_cast<int>(trend); }
+  std::size_t n_params() const;
+  std::size_t planet_index(int planet) const { return static_cast<std::size_t>(kPlanetParams * planet); }
+  std::size_t offset_index(int instrument) const;
+  std::size_t jitter_index(int instrument) const;  // only when fit_jitter
+  std::size_t trend_index(int power) const;        // power 1 or 2
+  // Parameter names ("b.period_d", "north.offset_ms", "trend.c1_ms_per_d", ...) and
+  // their units, in theta order. Planets are labelled b, c, d, ... by position.
+  std::vector<std::string> names(const std::vector<std::string>& instrument_names) const;
+  std::vector<std::string> units() const;
+};
+
+// Planet label for position j (0 -> "b").
+std::string planet_label(int index);
+
+Planet planet_from(std::span<const double> theta, const ModelLayout& layout, int planet);
+void put_planet(std::span<double> theta, const ModelLayout& layout, int planet, const Planet& p);
+
+// The model bound to a data set. Thread-safe for concurrent const calls.
+class KeplerianModel {
+ public:
+  KeplerianModel(VelocityData data, ModelLayout layout);
+
+  const VelocityData& data() const { return data_; }
+  const ModelLayout& layout() const { return layout_; }
+
+  // Gaussian log-likelihood (fast kernel, src/kernels/likelihood_kernel.cpp).
+  // Returns -inf for unphysical theta (P <= 0, e >= 1, jitter < 0).
+  double log_likelihood(std::span<const double> theta) const;
+  // Plain scalar implementation of the same, the reference for tests.
+  double log_likelihood_reference(std::span<const double> theta) const;
+
+  // Sum of the planets' velocities (no offsets or trend) at arbitrary times.
+  void planets_velocity(std::span<const double> theta, std::span<const double> t_days,
+                        std::span<double> out) const;
+  // Full model at the data points (planets + offset + trend).
+  std::vector<double> predict(std::span<const double> theta) const;
+  // Observed minus model at the data points.
+  std::vector<double> residuals(std::span<const double> theta) const;
+  // Chi-square (with jitter added in quadrature to the stated errors).
+  double chi_square(std::span<const double> theta) const;
+
+ private:
+  VelocityData data_;
+  ModelLayout layout_;
+};
+
+}  // namespace apsides

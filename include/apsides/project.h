@@ -1,0 +1,113 @@
+// The project file: one TOML file naming the star, the data, the model and the settings
+// of every stage. Every key has a default, so a project can be three lines:
+//
+//   [[velocities]]
+//   file = "rv.csv"
+//
+// Keys (defaults in brackets); unknown keys are input errors naming the key:
+//   [star]        name [""], mass_msun [unset], mass_err_msun [0], radius_rsun [unset],
+//                 radius_err_rsun [0]
+//   [[velocities]] file (required, relative to the project file), instrument [from file],
+//                 velocity_unit ["m/s"]
+//   [[transits]]  file (required), planet ["b"], fit_jitter [false]
+//   [search]      max_planets [3], min_period_d [auto], max_period_d [auto],
+//                 oversample [10], fap_threshold [0.001]
+//   [model]       planets [from search], trend ["none" | "linear" | "quadratic"],
+//                 fit_jitter [true], eccentricity ["uniform" | "beta" | "circular"]
+//   [priors]      "<param>" = { dist = "...", ... } overriding defaults (prior.h)
+//   [sampler]     walkers [0 = auto], max_steps [200000], ess_target [2000],
+//                 rhat_max [1.01], min_tau_multiple [50], seed [1], checkpoint_steps [1000]
+//   [evidence]    live_points [400], seed [1], bayes_threshold [5]
+#pragma once
+
+#include <map>
+#include <optional>
+#include <string>
+#include <vector>
+
+#include "apsides/data.h"
+#include "apsides/keplerian_model.h"
+#include "apsides/prior.h"
+
+namespace apsides {
+
+struct StarSpec {
+  std::string name;
+  std::optional<double> mass_msun;
+  double mass_err_msun = 0.0;
+  std::optional<double> radius_rsun;
+  double radius_err_rsun = 0.0;
+};
+
+struct VelocitySource {
+  std::string file;  // resolved path
+  VelocityFileOptions options;
+};
+
+struct TransitSource {
+  std::string file;  // resolved path
+  std::string planet = "b";
+  bool fit_jitter = false;
+};
+
+struct SearchSettings {
+  int max_planets = 3;
+  std::optional<double> min_period_d;
+  std::optional<double> max_period_d;
+  double oversample = 10.0;
+  double fap_threshold = 1e-3;
+};
+
+struct ModelSettings {
+  std::optional<int> planets;
+  Trend trend = Trend::kNone;
+  bool fit_jitter = true;
+  EccentricityPriorKind eccentricity = EccentricityPriorKind::kUniform;
+};
+
+// One [priors] entry, validated but not yet bound to a layout.
+struct PriorSpec {
+  std::string parameter;  // e.g. "b.period_d", "north.jitter_ms", "eccentricity"
+  Prior prior;
+  std::optional<EccentricityPrior> eccentricity;  // for "eccentricity" / "b.eccentricity"
+};
+
+struct SamplerSettings {
+  int walkers = 0;  // 0: 4 x number of parameters, at least 32, even
+  long max_steps = 200000;
+  double ess_target = 2000.0;
+  double rhat_max = 1.01;
+  double min_tau_multiple = 50.0;
+  unsigned long long seed = 1;
+  long checkpoint_steps = 1000;
+};
+
+struct EvidenceSettings {
+  int live_points = 400;
+  unsigned long long seed = 1;
+  double bayes_threshold = 5.0;
+};
+
+struct Project {
+  std::string path;  // the project file
+  std::string text;  // its full text, kept for the results file
+  StarSpec star;
+  std::vector<VelocitySource> velocities;
+  std::vector<TransitSource> transits;
+  SearchSettings search;
+  ModelSettings model;
+  std::vector<PriorSpec> priors;
+  SamplerSettings sampler;
+  EvidenceSettings evidence;
+
+  VelocityData load_velocities() const;  // reads and combines every [[velocities]] file
+  TransitData load_transits() const;     // all [[transits]] files, planet label per file
+};
+
+// Reads and validates a project file; throws InputError ("file:line: key: problem").
+Project load_project(const std::string& path);
+// Same from a string (for tests); `base_dir` resolves relative data paths.
+Project parse_project(const std::string& text, const std::string& path_for_messages,
+                      const std::string& base_dir);
+
+}  // namespace apsides

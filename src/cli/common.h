@@ -1,0 +1,57 @@
+// Shared pieces of the command line: JSON helpers, atomic file writes, progress bars.
+#pragma once
+
+#include <CLI/CLI.hpp>
+#include <chrono>
+#include <functional>
+#include <nlohmann/json.hpp>
+#include <string>
+#include <vector>
+
+namespace apsides::cli {
+
+// Options every command takes.
+struct CommonOptions {
+  std::string json_path;  // --json FILE
+  bool quiet = false;     // --quiet
+};
+void add_common_options(CLI::App* cmd, CommonOptions& opts);
+
+// A command: registers itself on the parent app and returns its subcommand and the
+// action to run after parsing (returns the exit code). Each cmd_<name>.cpp defines one.
+using Action = std::function<int()>;
+struct Command {
+  CLI::App* app = nullptr;
+  Action run;
+};
+Command register_simulate(CLI::App& app);
+
+// Writes text to `path` atomically (temporary file + rename): never half-written.
+void write_file_atomic(const std::string& path, const std::string& content);
+void write_json(const std::string& path, const nlohmann::json& j);
+
+// {"value": x}
+nlohmann::json value_json(double x);
+// {"median": m, "minus": m - q16, "plus": q84 - m}
+nlohmann::json quantiles_json(double median, double minus, double plus);
+
+// A one-line progress bar on stderr; silent when stderr is not a terminal or quiet.
+class ProgressBar {
+ public:
+  ProgressBar(std::string label, double total, bool quiet);
+  ~ProgressBar();
+  void update(double done, const std::string& extra = "");
+  void finish(const std::string& extra = "");
+  bool active() const { return active_; }
+
+ private:
+  std::string label_;
+  double total_;
+  bool active_;
+  std::chrono::steady_clock::time_point start_, last_;
+};
+
+// Whether stderr is a terminal (progress output allowed).
+bool stderr_is_terminal();
+
+}  // namespace apsides::cli

@@ -1,0 +1,293 @@
+#include "apsides/keplerian_model.h"
+
+#include <fmt/format.h>
+
+#include <cassert>
+#include <cmath>
+#include <limits>
+
+#include "apsides/constants.h"
+#include "apsides/error.h"
+#include "apsides/kepler.h"
+#include "kernels/kernels.h"
+
+namespace apsides {
+using constants::kPi;
+using constants::kTwoPi;
+
+double Planet::ecc() const {
+  return sqrt_e_cos_omega * sqrt_e_cos_omega + sqrt_e_sin_omega * sqrt_e_sin_omega;
+}
+
+double Planet::omega_rad() const {
+  if (sqrt_e_cos_omega == 0.0 && sqrt_e_sin_omega == 0.0) return 0.0;
+  return std::atan2(sqrt_e_sin_omega, sqrt_e_cos_omega);
+}
+
+Planet Planet::from_elements(double period_days, double semi_amplitude_m_s, double ecc,
+                             double omega_rad, double t_conj_days) {
+  Planet p;
+  p.period_days = period_days;
+  p.semi_amplitude_m_s = semi_amplitude_m_s;
+  const double se = std::sqrt(ecc);
+  p.sqrt_e_cos_omega = se * std::cos(omega_rad);
+  p.sqrt_e_sin_omega = se * std::sin(omega_rad);
+  p.t_conj_days = t_conj_days;
+  return p;
+}
+
+double mean_anomaly_at_conjunction(double ecc, double omega_rad) {
+  const double nu = 0.5 * kPi - omega_rad;
+  const double E = eccentric_from_true_anomaly(nu, ecc);
+  return E - ecc * std::sin(E);
+}
+
+double time_of_periastron(double period_days, double ecc, double omega_rad, double t_conj_days) {
+  return t_conj_days - period_days / kTwoPi * mean_anomaly_at_conjunction(ecc, omega_rad);
+}
+
+double time_of_conjunction(double period_days, double ecc, double omega_rad, double t_peri_days) {
+  return t_peri_days + period_days / kTwoPi * mean_anomaly_at_conjunction(ecc, omega_rad);
+}
+
+double time_of_occultation(double period_days, double ecc, double omega_rad, double t_peri_days) {
+  const double nu = 1.5 * kPi - omega_rad;
+  const double E = eccentric_from_true_anomaly(nu, ecc);
+  double M = E - ecc * std::sin(E);
+  if (M < 0.0) M += kTwoPi;
+  return t_peri_days + period_days / kTwoPi * M;
+}
+
+double mean_anomaly_at(const Planet& planet, double t_days) {
+  const double e = planet.ecc();
+  const double M0 = mean_anomaly_at_conjunction(e, planet.omega_rad());
+  double M = std::fmod(kTwoPi * (t_days - planet.t_conj_days) / planet.period_days + M0, kTwoPi);
+  if (M < 0.0) M += kTwoPi;
+  return M;
+}
+
+double planet_velocity(const Planet& planet, double t_days) {
+  const double e = planet.ecc();
+  const double w = planet.omega_rad();
+  const double E = solve_kepler(mean_anomaly_at(planet, t_days), e);
+  const double nu = true_anomaly_from_eccentric(E, e);
+  return planet.semi_amplitude_m_s * (std::cos(nu + w) + e * std::cos(w));
+}
+
+std::string to_string(Trend trend) {
+  switch (trend) {
+    case Trend::kNone: return "none";
+    case Trend::kLinear: return "linear";
+    case Trend::kQuadratic: return "quadratic";
+  }
+  return "none";
+}
+
+Trend parse_trend(const std::string& text, const std::string& where) {
+  if (text == "none") return Trend::kNone;
+  if (text == "linear") return Trend::kLinear;
+  if (text == "quadratic") return Trend::kQuadratic;
+  throw InputError(fmt::format("{}: trend is '{}'; it must be \"none\", \"linear\" or \"quadratic\"",
+                               where, text));
+}
+
+std::size_t ModelLayout::n_params() const {
+  return static_cast<std::size_t>(kPlanetParams * n_planets + per_instrument() * n_instruments +
+                                  trend_order());
+}
+std::size_t ModelLayout::offset_index(int instrument) const {
+  return static_cast<std::size_t>(kPlanetParams * n_planets + per_instrument() * instrument);
+}
+std::size_t ModelLayout::jitter_index(int instrument) const {
+  assert(fit_jitter);
+  return offset_index(instrument) + 1;
+}
+std::size_t ModelLayout::trend_index(int power) const {
+  assert(power >= 1 && power <= trend_order());
+  return static_cast<std::size_t>(kPlanetParams * n_planets + per_instrument() * n_instruments +
+                                  power - 1);
+}
+
+std::string planet_label(int index) {
+  return std::string(1, static_cast<char>('b' + index));
+}
+
+std::vector<std::string> ModelLayout::names(const std::vector<std::string>& instrument_names) const {
+  std::vector<std::string> out;
+  for (int j = 0; j < n_planets; ++j) {
+    const std::string l = planet_label(j);
+    for (const char* n : {"period_d", "K_ms", "secosw", "sesinw", "t_conj_d"}) out.push_back(l + "." + n);
+  }
+  for (int i = 0; i < n_instruments; ++i) {
+    const std::string& in = instrument_names.at(static_cast<std::size_t>(i));
+    out.push_back(in + ".offset_ms");
+    if (fit_jitter) out.push_back(in + ".jitter_ms");
+  }
+  if (trend_order() >= 1) out.push_back("trend.c1_ms_per_d");
+  if (trend_order() >= 2) out.push_back("trend.c2_ms_per_d2");
+  return out;
+}
+
+std::vector<std::string> ModelLayout::units() const {
+  std::vector<std::string> out;
+  for (int j = 0; j < n_planets; ++j) {
+    for (const char* u : {"d", "m/s", "1", "1", "d (BJD_TDB - reference epoch)"}) out.push_back(u);
+  }
+  for (int i = 0; i < n_instruments; ++i) {
+    out.push_back("m/s");
+    if (fit_jitter) out.push_back("m/s");
+  }
+  if (trend_order() >= 1) out.push_back("m/s/d");
+  if (trend_order() >= 2) out.push_back("m/s/d^2");
+  return out;
+}
+
+Planet planet_from(std::span<const double> theta, const ModelLayout& layout, int planet) {
+  const std::size_t k = layout.planet_index(planet);
+  return Planet{theta[k], theta[k + 1], theta[k + 2], theta[k + 3], theta[k + 4]};
+}
+
+void put_planet(std::span<double> theta, const ModelLayout& layout, int planet, const Planet& p) {
+  const std::size_t k = layout.planet_index(planet);
+  theta[k] = p.period_days;
+  theta[k + 1] = p.semi_amplitude_m_s;
+  theta[k + 2] = p.sqrt_e_cos_omega;
+  theta[k + 3] = p.sqrt_e_sin_omega;
+  theta[k + 4] = p.t_conj_days;
+}
+
+KeplerianModel::KeplerianModel(VelocityData data, ModelLayout layout)
+    : data_(std::move(data)), layout_(layout) {
+  assert(static_cast<std::size_t>(layout_.n_instruments) == data_.n_instruments());
+}
+
+namespace {
+constexpr double kNegInf = -std::numeric_limits<double>::infinity();
+
+bool physical(std::span<const double> theta, const ModelLayout& L) {
+  for (int j = 0; j < L.n_planets; ++j) {
+    const Planet p = planet_from(theta, L, j);
+    if (!(p.period_days > 0.0) || !(p.ecc() < 1.0) || !std::isfinite(p.semi_amplitude_m_s) ||
+        !std::isfinite(p.t_conj_days))
+      return false;
+  }
+  if (L.fit_jitter) {
+    for (int i = 0; i < L.n_instruments; ++i)
+      if (!(theta[L.jitter_index(i)] >= 0.0)) return false;
+  }
+  for (double v : theta)
+    if (!std::isfinite(v)) return false;
+  return true;
+}
+
+struct Scratch {
+  std::vector<double> model, var, buf;
+  void resize(std::size_t n) {
+    if (model.size() < n) {
+      model.resize(n);
+      var.resize(n);
+      buf.resize(2 * n);
+    }
+  }
+};
+thread_local Scratch tl_scratch;
+}  // namespace
+
+void KeplerianModel::planets_velocity(std::span<const double> theta, std::span<const double> t,
+                                      std::span<double> out) const {
+  std::fill(out.begin(), out.end(), 0.0);
+  std::vector<double> buf(2 * t.size());
+  for (int j = 0; j < layout_.n_planets; ++j) {
+    const Planet p = planet_from(theta, layout_, j);
+    const double e = p.ecc(), w = p.omega_rad();
+    const double M0 = mean_anomaly_at_conjunction(e, w) - kTwoPi * p.t_conj_days / p.period_days;
+    kernels::add_keplerian(t.data(), t.size(), p.period_days, p.semi_amplitude_m_s, e, w, M0,
+                           out.data(), buf.data());
+  }
+}
+
+std::vector<double> KeplerianModel::predict(std::span<const double> theta) const {
+  const std::size_t n = data_.size();
+  std::vector<double> out(n);
+  planets_velocity(theta, data_.time_days, out);
+  for (std::size_t i = 0; i < n; ++i) {
+    out[i] += theta[layout_.offset_index(data_.instrument[i])];
+    const double t = data_.time_days[i];
+    if (layout_.trend_order() >= 1) out[i] += theta[layout_.trend_index(1)] * t;
+    if (layout_.trend_order() >= 2) out[i] += theta[layout_.trend_index(2)] * t * t;
+  }
+  return out;
+}
+
+std::vector<double> KeplerianModel::residuals(std::span<const double> theta) const {
+  std::vector<double> m = predict(theta);
+  for (std::size_t i = 0; i < m.size(); ++i) m[i] = data_.velocity_m_s[i] - m[i];
+  return m;
+}
+
+double KeplerianModel::chi_square(std::span<const double> theta) const {
+  std::vector<double> r = residuals(theta);
+  double chi2 = 0.0;
+  for (std::size_t i = 0; i < r.size(); ++i) {
+    double var = data_.uncertainty_m_s[i] * data_.uncertainty_m_s[i];
+    if (layout_.fit_jitter) {
+      const double j = theta[layout_.jitter_index(data_.instrument[i])];
+      var += j * j;
+    }
+    chi2 += r[i] * r[i] / var;
+  }
+  return chi2;
+}
+
+double KeplerianModel::log_likelihood(std::span<const double> theta) const {
+  assert(theta.size() == layout_.n_params());
+  if (!physical(theta, layout_)) return kNegInf;
+  const std::size_t n = data_.size();
+  Scratch& s = tl_scratch;
+  s.resize(n);
+  double* model = s.model.data();
+  double* var = s.var.data();
+  const double* t = data_.time_days.data();
+  const int* inst = data_.instrument.data();
+  const double* y = data_.velocity_m_s.data();
+  const double* dy = data_.uncertainty_m_s.data();
+  // Offsets and trend first, then each planet added by the kernel.
+  const double c1 = layout_.trend_order() >= 1 ? theta[layout_.trend_index(1)] : 0.0;
+  const double c2 = layout_.trend_order() >= 2 ? theta[layout_.trend_index(2)] : 0.0;
+  for (std::size_t i = 0; i < n; ++i) {
+    const double ti = t[i];
+    model[i] = -(y[i] - theta[layout_.offset_index(inst[i])] - (c1 + c2 * ti) * ti);
+    double j = layout_.fit_jitter ? theta[layout_.jitter_index(inst[i])] : 0.0;
+    var[i] = dy[i] * dy[i] + j * j;
+  }
+  // model[i] now holds -(y - offset - trend); adding planets gives -(residual).
+  for (int k = 0; k < layout_.n_planets; ++k) {
+    const Planet p = planet_from(theta, layout_, k);
+    const double e = p.ecc(), w = p.omega_rad();
+    const double M0 = mean_anomaly_at_conjunction(e, w) - kTwoPi * p.t_conj_days / p.period_days;
+    kernels::add_keplerian(t, n, p.period_days, p.semi_amplitude_m_s, e, w, M0, model, s.buf.data());
+  }
+  return kernels::gaussian_lnlike(model, var, n);
+}
+
+double KeplerianModel::log_likelihood_reference(std::span<const double> theta) const {
+  if (!physical(theta, layout_)) return kNegInf;
+  double lnl = 0.0;
+  for (std::size_t i = 0; i < data_.size(); ++i) {
+    const double t = data_.time_days[i];
+    double m = theta[layout_.offset_index(data_.instrument[i])];
+    if (layout_.trend_order() >= 1) m += theta[layout_.trend_index(1)] * t;
+    if (layout_.trend_order() >= 2) m += theta[layout_.trend_index(2)] * t * t;
+    for (int k = 0; k < layout_.n_planets; ++k) m += planet_velocity(planet_from(theta, layout_, k), t);
+    const double r = data_.velocity_m_s[i] - m;
+    double var = data_.uncertainty_m_s[i] * data_.uncertainty_m_s[i];
+    if (layout_.fit_jitter) {
+      const double j = theta[layout_.jitter_index(data_.instrument[i])];
+      var += j * j;
+    }
+    lnl += -0.5 * (r * r / var + std::log(kTwoPi * var));
+  }
+  return lnl;
+}
+
+}  // namespace apsides

@@ -1,0 +1,417 @@
+#include "apsides/project.h"
+
+#include <fmt/format.h>
+
+#include <algorithm>
+#include <cmath>
+#include <filesystem>
+#include <fstream>
+#include <set>
+#include <sstream>
+#include <toml++/toml.h>
+
+#include "apsides/error.h"
+
+namespace apsides {
+namespace fs = std::filesystem;
+
+namespace {
+
+struct Ctx {
+  std::string path;
+  std::string where(const toml::node& n, const std::string& key) const {
+    const auto& src = n.source();
+    if (src.begin.line > 0) return fmt::format("{}:{}: {}", path, src.begin.line, key);
+    return fmt::format("{}: {}", path, key);
+  }
+};
+
+std::size_t edit_distance(const std::string& a, const std::string& b) {
+  std::vector<std::size_t> prev(b.size() + 1), cur(b.size() + 1);
+  for (std::size_t j = 0; j <= b.size(); ++j) prev[j] = j;
+  for (std::size_t i = 1; i <= a.size(); ++i) {
+    cur[0] = i;
+    for (std::size_t j = 1; j <= b.size(); ++j) {
+      cur[j] = std::min({prev[j] + 1, cur[j - 1] + 1, prev[j - 1] + (a[i - 1] == b[j - 1] ? 0 : 1)});
+    }
+    std::swap(prev, cur);
+  }
+  return prev[b.size()];
+}
+
+void check_keys(const Ctx& ctx, const toml::table& t, const std::string& table_name,
+                const std::set<std::string>& allowed) {
+  for (const auto& [k, v] : t) {
+    const std::string key(k.str());
+    if (allowed.count(key)) continue;
+    const std::string name = table_name.empty() ? key : table_name + "." + key;
+    std::string best;
+    std::size_t best_d = 3;
+    for (const auto& a : allowed) {
+      const std::size_t d = edit_distance(key, a);
+      if (d < best_d) {
+        best_d = d;
+        best = a;
+      }
+    }
+    std::string list;
+    for (const auto& a : allowed) list += (list.empty() ? "" : ", ") + a;
+    const int line = k.source().begin.line > 0 ? static_cast<int>(k.source().begin.line)
+                                               : static_cast<int>(v.source().begin.line);
+    if (!best.empty()) {
+      throw InputError(fmt::format("{}:{}: unknown key '{}'; did you mean '{}'?", ctx.path, line, name, best));
+    }
+    throw InputError(fmt::format("{}:{}: unknown key '{}' (known: {})", ctx.path, line, name, list));
+  }
+}
+
+std::string full(const std::string& table, const std::string& key) {
+  return table.empty() ? key : table + "." + key;
+}
+
+double get_number(const Ctx& ctx, const toml::table& t, const std::string& table,
+                  const std::string& key, double fallback, bool* present = nullptr) {
+  const toml::node* n = t.get(key);
+  if (present) *present = n != nullptr;
+  if (!n) return fallback;
+  if (auto v = n->value<double>(); v && (n->is_floating_point() || n->is_integer())) {
+    if (!std::isfinite(*v)) throw InputError(fmt::format("{} is {}; it must be finite", ctx.where(*n, full(table, key)), *v));
+    return *v;
+  }
+  throw InputError(fmt::format("{} must be a number", ctx.where(*n, full(table, key))));
+}
+
+long get_integer(const Ctx& ctx, const toml::table& t, const std::string& table,
+                 const std::string& key, long fallback) {
+  const toml::node* n = t.get(key);
+  if (!n) return fallback;
+  if (n->is_integer()) return static_cast<long>(*n->value<int64_t>());
+  throw InputError(fmt::format("{} must be an integer", ctx.where(*n, full(table, key))));
+}
+
+bool get_bool(const Ctx& ctx, const toml::table& t, const std::string& table,
+              const std::string& key, bool fallback) {
+  const toml::node* n = t.get(key);
+  if (!n) return fallback;
+  if (n->is_boolean()) return *n->value<bool>();
+  throw InputError(fmt::format("{} must be true or false", ctx.where(*n, full(table, key))));
+}
+
+std::string get_string(const Ctx& ctx, const toml::table& t, const std::string& table,
+                       const std::string& key, const std::string& fallback) {
+  const toml::node* n = t.get(key);
+  if (!n) return fallback;
+  if (n->is_string()) return *n->value<std::string>();
+  throw InputError(fmt::format("{} must be a string", ctx.where(*n, full(table, key))));
+}
+
+const toml::table* get_table(const Ctx& ctx, const toml::table& root, const std::string& key) {
+  const toml::node* n = root.get(key);
+  if (!n) return nullptr;
+  if (!n->is_table()) throw InputError(fmt::format("{} must be a table ([{}])", ctx.where(*n, key), key));
+  return n->as_table();
+}
+
+std::vector<const toml::table*> get_array_of_tables(const Ctx& ctx, const toml::table& root,
+                                                    const std::string& key) {
+  std::vector<const toml::table*> out;
+  const toml::node* n = root.get(key);
+  if (!n) return out;
+  if (n->is_table()) {
+    throw InputError(fmt::format("{} must be written [[{}]] (one block per file), not [{}]",
+                                 ctx.where(*n, key), key, key));
+  }
+  if (!n->is_array()) throw InputError(fmt::format("{} must be an array of tables ([[{}]])", ctx.where(*n, key), key));
+  for (const auto& e : *n->as_array()) {
+    if (!e.is_table()) throw InputError(fmt::format("{} must be an array of tables ([[{}]])", ctx.where(e, key), key));
+    out.push_back(e.as_table());
+  }
+  return out;
+}
+
+std::string resolve(const std::string& base_dir, const std::string& file) {
+  fs::path p(file);
+  if (p.is_absolute() || base_dir.empty()) return p.lexically_normal().string();
+  return (fs::path(base_dir) / p).lexically_normal().string();
+}
+
+PriorSpec parse_prior_entry(const Ctx& ctx, const std::string& name, const toml::node& node) {
+  const std::string key = "priors." + name;
+  if (!node.is_table()) {
+    throw InputError(fmt::format("{} must be an inline table like {{ dist = \"uniform\", min = 0, max = 1 }}",
+                                 ctx.where(node, key)));
+  }
+  const toml::table& t = *node.as_table();
+  PriorSpec spec;
+  spec.parameter = name;
+  const std::string dist = get_string(ctx, t, key, "dist", "");
+  if (dist.empty()) throw InputError(fmt::format("{} needs a 'dist' key", ctx.where(node, key)));
+  const bool is_ecc = name == "eccentricity" || (name.size() > 13 && name.substr(name.size() - 13) == ".eccentricity");
+  if (is_ecc) {
+    check_keys(ctx, t, key, {"dist", "a", "b", "max"});
+    EccentricityPrior ep;
+    if (dist == "uniform") ep.kind = EccentricityPriorKind::kUniform;
+    else if (dist == "beta") ep.kind = EccentricityPriorKind::kBeta;
+    else if (dist == "circular") ep.kind = EccentricityPriorKind::kCircular;
+    else throw InputError(fmt::format("{}.dist is '{}'; an eccentricity prior is \"uniform\", \"beta\" or \"circular\"", ctx.where(node, key), dist));
+    ep.a = get_number(ctx, t, key, "a", ep.a);
+    ep.b = get_number(ctx, t, key, "b", ep.b);
+    ep.max_ecc = get_number(ctx, t, key, "max", ep.max_ecc);
+    if (auto msg = ep.Validate(); !msg.empty()) throw InputError(fmt::format("{}: impossible prior: {}", ctx.where(node, key), msg));
+    spec.eccentricity = ep;
+    return spec;
+  }
+  const PriorKind kind = parse_prior_kind(dist, ctx.where(node, key + ".dist"));
+  Prior p;
+  switch (kind) {
+    case PriorKind::kUniform:
+    case PriorKind::kLogUniform: {
+      check_keys(ctx, t, key, {"dist", "min", "max"});
+      bool h1, h2;
+      double lo = get_number(ctx, t, key, "min", 0, &h1), hi = get_number(ctx, t, key, "max", 0, &h2);
+      if (!h1 || !h2) throw InputError(fmt::format("{}: a {} prior needs min and max", ctx.where(node, key), dist));
+      p = kind == PriorKind::kUniform ? Prior::uniform(lo, hi) : Prior::log_uniform(lo, hi);
+      break;
+    }
+    case PriorKind::kNormal: {
+      check_keys(ctx, t, key, {"dist", "mean", "sd"});
+      bool h1, h2;
+      double m = get_number(ctx, t, key, "mean", 0, &h1), s = get_number(ctx, t, key, "sd", 0, &h2);
+      if (!h1 || !h2) throw InputError(fmt::format("{}: a normal prior needs mean and sd", ctx.where(node, key)));
+      p = Prior::normal(m, s);
+      break;
+    }
+    case PriorKind::kTruncatedNormal: {
+      check_keys(ctx, t, key, {"dist", "mean", "sd", "min", "max"});
+      bool h1, h2, h3, h4;
+      double m = get_number(ctx, t, key, "mean", 0, &h1), s = get_number(ctx, t, key, "sd", 0, &h2);
+      double lo = get_number(ctx, t, key, "min", 0, &h3), hi = get_number(ctx, t, key, "max", 0, &h4);
+      if (!h1 || !h2 || !h3 || !h4) throw InputError(fmt::format("{}: a truncated-normal prior needs mean, sd, min and max", ctx.where(node, key)));
+      p = Prior::truncated_normal(m, s, lo, hi);
+      break;
+    }
+    case PriorKind::kHalfNormal: {
+      check_keys(ctx, t, key, {"dist", "sd"});
+      bool h;
+      double s = get_number(ctx, t, key, "sd", 0, &h);
+      if (!h) throw InputError(fmt::format("{}: a half-normal prior needs sd", ctx.where(node, key)));
+      p = Prior::half_normal(s);
+      break;
+    }
+    case PriorKind::kModifiedJeffreys: {
+      check_keys(ctx, t, key, {"dist", "knee", "max"});
+      bool h1, h2;
+      double k = get_number(ctx, t, key, "knee", 0, &h1), hi = get_number(ctx, t, key, "max", 0, &h2);
+      if (!h1 || !h2) throw InputError(fmt::format("{}: a modified-jeffreys prior needs knee and max", ctx.where(node, key)));
+      p = Prior::modified_jeffreys(k, hi);
+      break;
+    }
+    case PriorKind::kFixed: {
+      check_keys(ctx, t, key, {"dist", "value"});
+      bool h;
+      double v = get_number(ctx, t, key, "value", 0, &h);
+      if (!h) throw InputError(fmt::format("{}: a fixed prior needs value", ctx.where(node, key)));
+      p = Prior::fixed(v);
+      break;
+    }
+  }
+  if (auto msg = p.Validate(); !msg.empty()) {
+    throw InputError(fmt::format("{}: impossible prior: {}", ctx.where(node, key), msg));
+  }
+  spec.prior = p;
+  return spec;
+}
+
+}  // namespace
+
+Project parse_project(const std::string& text, const std::string& path, const std::string& base_dir) {
+  Ctx ctx{path};
+  toml::table root;
+  try {
+    root = toml::parse(text, path);
+  } catch (const toml::parse_error& e) {
+    const auto& src = e.source();
+    throw InputError(fmt::format("{}:{}:{}: TOML syntax error: {}", path, src.begin.line,
+                                 src.begin.column, std::string(e.description())));
+  }
+  Project pr;
+  pr.path = path;
+  pr.text = text;
+  check_keys(ctx, root, "", {"star", "velocities", "transits", "search", "model", "priors", "sampler", "evidence"});
+
+  if (const toml::table* t = get_table(ctx, root, "star")) {
+    check_keys(ctx, *t, "star", {"name", "mass_msun", "mass_err_msun", "radius_rsun", "radius_err_rsun"});
+    pr.star.name = get_string(ctx, *t, "star", "name", "");
+    bool has = false;
+    double m = get_number(ctx, *t, "star", "mass_msun", 0, &has);
+    if (has) {
+      if (!(m > 0)) throw InputError(fmt::format("{} is {}; it must be > 0", ctx.where(*t->get("mass_msun"), "star.mass_msun"), m));
+      pr.star.mass_msun = m;
+    }
+    pr.star.mass_err_msun = get_number(ctx, *t, "star", "mass_err_msun", 0.0);
+    if (pr.star.mass_err_msun < 0) throw InputError(fmt::format("{} is {}; it must be >= 0", ctx.where(*t->get("mass_err_msun"), "star.mass_err_msun"), pr.star.mass_err_msun));
+    if (has && pr.star.mass_err_msun >= m) throw InputError(fmt::format("{} is {}; it must be below star.mass_msun = {}", ctx.where(*t->get("mass_err_msun"), "star.mass_err_msun"), pr.star.mass_err_msun, m));
+    double r = get_number(ctx, *t, "star", "radius_rsun", 0, &has);
+    if (has) {
+      if (!(r > 0)) throw InputError(fmt::format("{} is {}; it must be > 0", ctx.where(*t->get("radius_rsun"), "star.radius_rsun"), r));
+      pr.star.radius_rsun = r;
+    }
+    pr.star.radius_err_rsun = get_number(ctx, *t, "star", "radius_err_rsun", 0.0);
+  }
+
+  for (const toml::table* t : get_array_of_tables(ctx, root, "velocities")) {
+    check_keys(ctx, *t, "velocities", {"file", "instrument", "velocity_unit"});
+    VelocitySource s;
+    const std::string f = get_string(ctx, *t, "velocities", "file", "");
+    if (f.empty()) throw InputError(fmt::format("{}: [[velocities]] block at line {} needs a 'file' key", path, t->source().begin.line));
+    s.file = resolve(base_dir, f);
+    s.options.instrument = get_string(ctx, *t, "velocities", "instrument", "");
+    if (const toml::node* n = t->get("velocity_unit"))
+      s.options.unit = parse_velocity_unit(get_string(ctx, *t, "velocities", "velocity_unit", ""), ctx.where(*n, "velocities.velocity_unit"));
+    pr.velocities.push_back(s);
+  }
+  if (pr.velocities.empty()) {
+    throw InputError(fmt::format("{}: no [[velocities]] block; a project needs at least one velocity file", path));
+  }
+
+  for (const toml::table* t : get_array_of_tables(ctx, root, "transits")) {
+    check_keys(ctx, *t, "transits", {"file", "planet", "fit_jitter"});
+    TransitSource s;
+    const std::string f = get_string(ctx, *t, "transits", "file", "");
+    if (f.empty()) throw InputError(fmt::format("{}: [[transits]] block at line {} needs a 'file' key", path, t->source().begin.line));
+    s.file = resolve(base_dir, f);
+    s.planet = get_string(ctx, *t, "transits", "planet", "b");
+    if (s.planet.size() != 1 || s.planet[0] < 'b' || s.planet[0] > 'z')
+      throw InputError(fmt::format("{} is '{}'; planets are labelled b, c, d, ... by increasing period", ctx.where(*t->get("planet"), "transits.planet"), s.planet));
+    s.fit_jitter = get_bool(ctx, *t, "transits", "fit_jitter", false);
+    pr.transits.push_back(s);
+  }
+
+  if (const toml::table* t = get_table(ctx, root, "search")) {
+    check_keys(ctx, *t, "search", {"max_planets", "min_period_d", "max_period_d", "oversample", "fap_threshold"});
+    pr.search.max_planets = static_cast<int>(get_integer(ctx, *t, "search", "max_planets", 3));
+    if (pr.search.max_planets < 0 || pr.search.max_planets > 10)
+      throw InputError(fmt::format("{} is {}; it must be between 0 and 10", ctx.where(*t->get("max_planets"), "search.max_planets"), pr.search.max_planets));
+    bool has;
+    double v = get_number(ctx, *t, "search", "min_period_d", 0, &has);
+    if (has) {
+      if (!(v > 0)) throw InputError(fmt::format("{} is {}; it must be > 0", ctx.where(*t->get("min_period_d"), "search.min_period_d"), v));
+      pr.search.min_period_d = v;
+    }
+    v = get_number(ctx, *t, "search", "max_period_d", 0, &has);
+    if (has) {
+      if (!(v > 0)) throw InputError(fmt::format("{} is {}; it must be > 0", ctx.where(*t->get("max_period_d"), "search.max_period_d"), v));
+      pr.search.max_period_d = v;
+    }
+    if (pr.search.min_period_d && pr.search.max_period_d && !(*pr.search.min_period_d < *pr.search.max_period_d))
+      throw InputError(fmt::format("{}: search.min_period_d = {} is not below search.max_period_d = {}", path, *pr.search.min_period_d, *pr.search.max_period_d));
+    pr.search.oversample = get_number(ctx, *t, "search", "oversample", 10.0);
+    if (!(pr.search.oversample >= 1.0)) throw InputError(fmt::format("{} is {}; it must be >= 1", ctx.where(*t->get("oversample"), "search.oversample"), pr.search.oversample));
+    pr.search.fap_threshold = get_number(ctx, *t, "search", "fap_threshold", 1e-3);
+    if (!(pr.search.fap_threshold > 0 && pr.search.fap_threshold < 1)) throw InputError(fmt::format("{} is {}; it must be in (0, 1)", ctx.where(*t->get("fap_threshold"), "search.fap_threshold"), pr.search.fap_threshold));
+  }
+
+  if (const toml::table* t = get_table(ctx, root, "model")) {
+    check_keys(ctx, *t, "model", {"planets", "trend", "fit_jitter", "eccentricity"});
+    if (const toml::node* n = t->get("planets")) {
+      long k = get_integer(ctx, *t, "model", "planets", 0);
+      if (k < 0 || k > 10) throw InputError(fmt::format("{} is {}; it must be between 0 and 10", ctx.where(*n, "model.planets"), k));
+      pr.model.planets = static_cast<int>(k);
+    }
+    if (const toml::node* n = t->get("trend"))
+      pr.model.trend = parse_trend(get_string(ctx, *t, "model", "trend", "none"), ctx.where(*n, "model.trend"));
+    pr.model.fit_jitter = get_bool(ctx, *t, "model", "fit_jitter", true);
+    if (const toml::node* n = t->get("eccentricity")) {
+      const std::string e = get_string(ctx, *t, "model", "eccentricity", "uniform");
+      if (e == "uniform") pr.model.eccentricity = EccentricityPriorKind::kUniform;
+      else if (e == "beta") pr.model.eccentricity = EccentricityPriorKind::kBeta;
+      else if (e == "circular") pr.model.eccentricity = EccentricityPriorKind::kCircular;
+      else throw InputError(fmt::format("{} is '{}'; it must be \"uniform\", \"beta\" or \"circular\"", ctx.where(*n, "model.eccentricity"), e));
+    }
+  }
+
+  if (const toml::table* t = get_table(ctx, root, "priors")) {
+    for (const auto& [k, v] : *t) pr.priors.push_back(parse_prior_entry(ctx, std::string(k.str()), v));
+  }
+
+  if (const toml::table* t = get_table(ctx, root, "sampler")) {
+    check_keys(ctx, *t, "sampler", {"walkers", "max_steps", "ess_target", "rhat_max", "min_tau_multiple", "seed", "checkpoint_steps"});
+    auto& s = pr.sampler;
+    s.walkers = static_cast<int>(get_integer(ctx, *t, "sampler", "walkers", 0));
+    if (s.walkers != 0 && (s.walkers < 4 || s.walkers % 2 != 0))
+      throw InputError(fmt::format("{} is {}; it must be an even number >= 4 (or 0 for automatic)", ctx.where(*t->get("walkers"), "sampler.walkers"), s.walkers));
+    s.max_steps = get_integer(ctx, *t, "sampler", "max_steps", s.max_steps);
+    if (s.max_steps < 10) throw InputError(fmt::format("{} is {}; it must be >= 10", ctx.where(*t->get("max_steps"), "sampler.max_steps"), s.max_steps));
+    s.ess_target = get_number(ctx, *t, "sampler", "ess_target", s.ess_target);
+    if (!(s.ess_target > 0)) throw InputError(fmt::format("{} is {}; it must be > 0", ctx.where(*t->get("ess_target"), "sampler.ess_target"), s.ess_target));
+    s.rhat_max = get_number(ctx, *t, "sampler", "rhat_max", s.rhat_max);
+    if (!(s.rhat_max > 1.0)) throw InputError(fmt::format("{} is {}; it must be > 1", ctx.where(*t->get("rhat_max"), "sampler.rhat_max"), s.rhat_max));
+    s.min_tau_multiple = get_number(ctx, *t, "sampler", "min_tau_multiple", s.min_tau_multiple);
+    long seed = get_integer(ctx, *t, "sampler", "seed", 1);
+    if (seed < 0) throw InputError(fmt::format("{} is {}; it must be >= 0", ctx.where(*t->get("seed"), "sampler.seed"), seed));
+    s.seed = static_cast<unsigned long long>(seed);
+    s.checkpoint_steps = get_integer(ctx, *t, "sampler", "checkpoint_steps", s.checkpoint_steps);
+    if (s.checkpoint_steps < 1) throw InputError(fmt::format("{} is {}; it must be >= 1", ctx.where(*t->get("checkpoint_steps"), "sampler.checkpoint_steps"), s.checkpoint_steps));
+  }
+
+  if (const toml::table* t = get_table(ctx, root, "evidence")) {
+    check_keys(ctx, *t, "evidence", {"live_points", "seed", "bayes_threshold"});
+    auto& e = pr.evidence;
+    e.live_points = static_cast<int>(get_integer(ctx, *t, "evidence", "live_points", e.live_points));
+    if (e.live_points < 20) throw InputError(fmt::format("{} is {}; it must be >= 20", ctx.where(*t->get("live_points"), "evidence.live_points"), e.live_points));
+    long seed = get_integer(ctx, *t, "evidence", "seed", 1);
+    if (seed < 0) throw InputError(fmt::format("{} is {}; it must be >= 0", ctx.where(*t->get("seed"), "evidence.seed"), seed));
+    e.seed = static_cast<unsigned long long>(seed);
+    e.bayes_threshold = get_number(ctx, *t, "evidence", "bayes_threshold", e.bayes_threshold);
+  }
+  return pr;
+}
+
+Project load_project(const std::string& path) {
+  std::error_code ec;
+  if (!fs::exists(path, ec)) throw InputError(fmt::format("{}: no such file", path));
+  if (fs::is_directory(path, ec)) throw InputError(fmt::format("{}: is a directory, not a project file", path));
+  std::ifstream in(path, std::ios::binary);
+  if (!in) throw InputError(fmt::format("{}: cannot be opened for reading", path));
+  std::stringstream ss;
+  ss << in.rdbuf();
+  std::string text = ss.str();
+  if (text.size() >= 3 && (unsigned char)text[0] == 0xEF && (unsigned char)text[1] == 0xBB && (unsigned char)text[2] == 0xBF)
+    text.erase(0, 3);
+  return parse_project(text, path, fs::path(path).parent_path().string());
+}
+
+VelocityData Project::load_velocities() const {
+  std::vector<std::string> paths;
+  std::vector<VelocityFileOptions> opts;
+  for (const auto& v : velocities) {
+    paths.push_back(v.file);
+    opts.push_back(v.options);
+  }
+  return apsides::load_velocities(paths, opts);
+}
+
+TransitData Project::load_transits() const {
+  TransitData all;
+  std::vector<TransitData> parts;
+  for (const auto& s : transits) {
+    TransitFileOptions o;
+    o.planet = s.planet;
+    parts.push_back(read_transit_file(s.file, o));
+  }
+  if (parts.empty()) return all;
+  all.reference_epoch_bjd = parts.front().reference_epoch_bjd;
+  for (const auto& p : parts) {
+    const double shift = p.reference_epoch_bjd - all.reference_epoch_bjd;  // integers: exact
+    for (std::size_t i = 0; i < p.size(); ++i) {
+      all.epoch.push_back(p.epoch[i]);
+      all.time_days.push_back(p.time_days[i] + shift);
+      all.uncertainty_days.push_back(p.uncertainty_days[i]);
+      all.planet.push_back(p.planet[i]);
+      all.origin.push_back(p.origin[i]);
+    }
+  }
+  return all;
+}
+
+}  // namespace apsides

@@ -1,0 +1,39 @@
+// Internal: reading delimited text tables (velocity and transit-time files).
+#pragma once
+
+#include <string>
+#include <vector>
+
+namespace apsides::detail {
+
+struct TextRow {
+  int line = 0;                      // 1-based line number in the file
+  std::vector<std::string> fields;   // trimmed
+};
+
+struct TextTable {
+  std::string path;
+  std::vector<std::string> header;   // empty when the file has none
+  std::vector<TextRow> rows;
+  char delimiter = ' ';              // ',' or ' ' (tab counts as whitespace)
+};
+
+// Reads a whole file: strips a UTF-8 BOM and CR characters of CRLF line ends, skips
+// blank lines and `#` comments (whole-line or trailing), detects the delimiter from the
+// first data line and insists every line uses the same kind, takes a first row whose
+// first field is not a number as a header. Throws InputError for a missing file, a
+// directory, an unreadable or binary file, mixed delimiters, an empty file.
+TextTable read_text_table(const std::string& path);
+
+// Parses a finite number; throws InputError "path:line: <what> is 'text'; it must be a
+// number" (or "... must be finite" for nan/inf).
+double parse_number(const std::string& text, const std::string& path, int line,
+                    const std::string& what);
+long double parse_long_double(const std::string& text, const std::string& path, int line,
+                              const std::string& what);
+bool looks_numeric(const std::string& text);
+
+std::string file_stem(const std::string& path);
+std::string display_path(const std::string& path);
+
+}  // namespace apsides::detail

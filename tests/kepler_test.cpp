@@ -1,0 +1,162 @@
+#include <doctest/doctest.h>
+#include <fmt/format.h>
+
+#include <cmath>
+#include <random>
+#include <sstream>
+#include <vector>
+
+#include "apsides/constants.h"
+#include "apsides/kepler.h"
+#include "test_support.h"
+
+using namespace apsides;
+namespace {
+constexpr double kDeg = constants::kPi / 180.0;
+
+// Long-double Newton/bisection reference: independent of both solvers under test.
+long double reference_E(long double M, long double e) {
+  const long double pi = 3.141592653589793238462643383279502884L;
+  M = std::fmod(M, 2 * pi);
+  if (M < 0) M += 2 * pi;
+  long double lo = 0, hi = 2 * pi;
+  for (int i = 0; i < 200; ++i) {
+    long double mid = 0.5L * (lo + hi);
+    if (mid - e * std::sin(mid) - M > 0) hi = mid; else lo = mid;
+  }
+  long double E = 0.5L * (lo + hi);
+  for (int i = 0; i < 3; ++i) E -= (E - e * std::sin(E) - M) / (1 - e * std::cos(E));
+  return E;
+}
+
+double angle_diff(double a, double b) {
+  double d = std::fmod(a - b, constants::kTwoPi);
+  if (d > constants::kPi) d -= constants::kTwoPi;
+  if (d < -constants::kPi) d += constants::kTwoPi;
+  return std::fabs(d);
+}
+
+double batch_E(double M, double e) {
+  std::vector<double> m{M}, s(1), c(1);
+  solve_kepler_sincos(m, e, s, c);
+  const double E = std::atan2(s[0], c[0]);
+  return E < 0 ? E + constants::kTwoPi : E;
+}
+}  // namespace
+
+TEST_SUITE("kepler") {
+  TEST_CASE("kepler: published worked examples (Meeus ch. 30, Vallado ex. 2-1)") {
+    struct Case { double e, M_deg, E_deg; const char* source; };
+    const std::vector<Case> cases = {
+        {0.100, 5.0, 5.554589, "[P] Meeus, Astronomical Algorithms 2nd ed., example 30.a"},
+        {0.990, 2.0, 32.361007, "[P] Meeus example 30.b"},
+        {0.400, 235.4, 220.512074767522, "[P] Vallado, Fundamentals of Astrodynamics 4th ed., Example 2-1"},
+        {0.2, 5.0, 6.246908, "[P] Meeus table (Burkardt P16)"},
+        {0.3, 5.0, 7.134960, "[P] Meeus table (Burkardt P16)"},
+        {0.4, 5.0, 8.313903, "[P] Meeus table (Burkardt P16)"},
+        {0.5, 5.0, 9.950063, "[P] Meeus table (Burkardt P16)"},
+        {0.6, 5.0, 12.356653, "[P] Meeus table (Burkardt P16)"},
+        {0.7, 5.0, 16.167990, "[P] Meeus table (Burkardt P16)"},
+        {0.8, 5.0, 22.656579, "[P] Meeus table (Burkardt P16)"},
+        {0.9, 5.0, 33.344447, "[P] Meeus table (Burkardt P16)"},
+        {0.99, 5.0, 45.361023, "[P] Meeus table"},
+        {0.99, 1.0, 24.725822, "[P] Meeus table"},
+        {0.99, 33.0, 89.722155, "[P] Meeus table"},
+    };
+    for (const auto& c : cases) {
+      CAPTURE(c.source);
+      CAPTURE(c.e);
+      CAPTURE(c.M_deg);
+      // Tolerance 1e-6 deg against 6-decimal published values (CHECKS.md section 1).
+      CHECK(std::fabs(solve_kepler(c.M_deg * kDeg, c.e) / kDeg - c.E_deg) < 1.5e-6);
+      CHECK(std::fabs(batch_E(c.M_deg * kDeg, c.e) / kDeg - c.E_deg) < 1.5e-6);
+    }
+    // [P] Meeus p. 196 as cited by a third-party test: e = 0.99, M = 0.2 rad.
+    CHECK(std::fabs(solve_kepler(0.2, 0.99) - 1.066997365282) < 1e-11);
+    CHECK(std::fabs(batch_E(0.2, 0.99) - 1.066997365282) < 1e-11);
+  }
+
+  TEST_CASE("kepler: true anomaly matches Meeus ch. 30 values") {
+    // [P] Meeus ch. 30 values as used in a public Meeus port's examples.
+    CHECK(std::fabs(true_anomaly_from_eccentric(solve_kepler(5 * kDeg, 0.1), 0.1) / kDeg - 6.139762) < 1.5e-6);
+    CHECK(std::fabs(true_anomaly_from_eccentric(solve_kepler(2 * kDeg, 0.99), 0.99) / kDeg - 152.542134) < 1.5e-6);
+    const double E = solve_kepler(7 * kDeg, 0.999);
+    CHECK(std::fabs(E / kDeg - 52.2702615) < 1.5e-6);
+    CHECK(std::fabs(true_anomaly_from_eccentric(E, 0.999) / kDeg - 174.780018) < 1.5e-6);
+  }
+
+  TEST_CASE("kepler: solves every e in [0, 0.999] and M in [0, 2 pi) to 1e-12 rad, e = 0.999 near periastron included") {
+    std::mt19937_64 rng(11);
+    std::uniform_real_distribution<double> um(0.0, constants::kTwoPi), ue(0.0, 0.999);
+    std::vector<double> M, e;
+    for (int i = 0; i < 20000; ++i) {
+      M.push_back(um(rng));
+      e.push_back(ue(rng));
+    }
+    // Hard corners: e -> 1 near periastron, M at 0, pi and 2 pi -, tiny M.
+    for (double ee : {0.9, 0.99, 0.995, 0.999}) {
+      for (double mm : {0.0, 1e-12, 1e-8, 1e-6, 1e-4, 1e-3, 0.01, 0.1, constants::kPi - 1e-9, constants::kPi,
+                        constants::kPi + 1e-9, constants::kTwoPi - 1e-6, constants::kTwoPi - 1e-12}) {
+        M.push_back(mm);
+        e.push_back(ee);
+      }
+    }
+    std::vector<double> Eb(M.size());
+    solve_kepler_batch(M, e, Eb);
+    double worst_scalar = 0, worst_batch = 0, worst_sincos = 0;
+    for (std::size_t i = 0; i < M.size(); ++i) {
+      const double ref = static_cast<double>(reference_E(M[i], e[i]));
+      worst_scalar = std::max(worst_scalar, angle_diff(solve_kepler(M[i], e[i]), ref));
+      worst_batch = std::max(worst_batch, angle_diff(Eb[i], ref));
+      worst_sincos = std::max(worst_sincos, angle_diff(batch_E(M[i], e[i]), ref));
+    }
+    CHECK(worst_scalar <= 1e-12);
+    CHECK(worst_batch <= 1e-12);
+    CHECK(worst_sincos <= 1e-12);
+  }
+
+  TEST_CASE("kepler: round trip E -> M -> E to 1e-14 rad for e up to 0.999") {
+    std::mt19937_64 rng(5);
+    std::uniform_real_distribution<double> uE(0.0, constants::kTwoPi), ue(0.0, 0.999);
+    double worst = 0;
+    for (int i = 0; i < 5000; ++i) {
+      const double E = uE(rng), e = ue(rng);
+      const double M = mean_from_eccentric(E, e);
+      worst = std::max(worst, angle_diff(solve_kepler(M, e), E));
+    }
+    CHECK(worst <= 1e-14 * 10);  // M itself carries ~1 ulp of 2 pi (4e-16 rad) rounding
+  }
+
+  TEST_CASE("kepler: agrees with scipy.optimize.brentq on 10^4 random solutions") {
+    // Outside reference: scipy (Debian python3-scipy) through /usr/bin/python3.
+    auto r = test::run_python(R"PY(
+import numpy as np
+from scipy.optimize import brentq
+rng = np.random.default_rng(42)
+M = rng.uniform(0, 2*np.pi, 10000); e = rng.uniform(0, 0.999, 10000)
+for m, ee in zip(M, e):
+    E = brentq(lambda x: x - ee*np.sin(x) - m, 0.0, 2*np.pi, xtol=1e-15, rtol=1e-15, maxiter=500)
+    print(repr(m), repr(ee), repr(E))
+)PY");
+    REQUIRE(r.status == 0);
+    std::istringstream in(r.output);
+    double m, ee, E;
+    int n = 0;
+    double worst = 0;
+    std::vector<double> Ms, es, Es;
+    while (in >> m >> ee >> E) {
+      Ms.push_back(m);
+      es.push_back(ee);
+      Es.push_back(E);
+      worst = std::max(worst, angle_diff(solve_kepler(m, ee), E));
+      ++n;
+    }
+    std::vector<double> Eb(Ms.size());
+    solve_kepler_batch(Ms, es, Eb);
+    double worst_b = 0;
+    for (std::size_t i = 0; i < Ms.size(); ++i) worst_b = std::max(worst_b, angle_diff(Eb[i], Es[i]));
+    CHECK(n == 10000);
+    CHECK(worst < 1e-12);
+    CHECK(worst_b < 1e-12);
+  }
+}

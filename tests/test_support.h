@@ -1,0 +1,26 @@
+// Helpers shared by the test suites.
+#pragma once
+
+#include <string>
+#include <vector>
+
+namespace apsides::test {
+
+// A fresh, empty directory for one test (under the build tree).
+std::string temp_dir(const std::string& name);
+// Writes `content` to dir/name and returns the path.
+std::string write_text(const std::string& dir, const std::string& name, const std::string& content);
+// Runs a shell command, returns its exit status and captures stdout (+stderr if asked).
+struct CommandResult {
+  int status = -1;
+  std::string output;
+};
+CommandResult run_command(const std::string& command, bool merge_stderr = true);
+// Runs a Python snippet with /usr/bin/python3 (Debian's numpy/scipy/astropy/h5py).
+CommandResult run_python(const std::string& code);
+// Paths.
+std::string source_dir();
+std::string shared_data(const std::string& name);  // ../shared/data/real/<name>
+std::string apsides_binary();
+
+}  // namespace apsides::test
