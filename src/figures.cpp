@@ -374,7 +374,7 @@ class Canvas {
     if (entries.empty()) return;
     full_page();
     set_text(0.95);
-    const double char_w = 0.58 * cw();  // average glyph width of DejaVu Sans, in NDC
+    const double char_w = 0.70 * cw();  // average glyph width of DejaVu Sans, in NDC
     const double sym_w = 2.6 * cw();
     const double gap = 2.2 * cw();
     double total = 0;
@@ -403,6 +403,13 @@ class Canvas {
 
   // Sets viewport and window; log10 world x when `log_x`.
   void panel(const Viewport& v, double wx0, double wx1, double wy0, double wy1) {
+    // Finite inputs can still overflow a span (values near 1e308): refuse rather than let
+    // PLplot see an infinite window.
+    if (!std::isfinite(wx0) || !std::isfinite(wx1) || !std::isfinite(wy0) || !std::isfinite(wy1) ||
+        !std::isfinite(wx1 - wx0) || !std::isfinite(wy1 - wy0)) {
+      throw InputError(fmt::format("{}: values too large to draw (axis range [{}, {}] x [{}, {}])", figure_, wx0,
+                                   wx1, wy0, wy1));
+    }
     pls_->vpor(v.x0, v.x1, v.y0, v.y1);
     pls_->wind(wx0, wx1, wy0, wy1);
   }
@@ -420,11 +427,42 @@ class Canvas {
     pls_->col0(kInk);
     pls_->smaj(0, 0.9);
     pls_->smin(0, 0.9);
-    const std::string xo = "bcst" + lx + (log_x ? "f" : "") + (x_numbers ? "n" : "");
+    // Log axes get their numbers from log_numbers(): PLplot would label decades only.
+    const std::string xo = "bcst" + lx + (x_numbers && !log_x ? "n" : "");
     const std::string yo = std::string("bcstv") + (y_numbers ? "n" : "");
     set_text(0.9);
     pls_->box(xo.c_str(), xtick, 0, yo.c_str(), ytick, 0);
+    if (log_x && x_numbers) log_numbers();
     set_text(1.0);
+  }
+
+  // Numbers 1, 2, 5 x 10^k under a log10 x axis (only 1 x 10^k when that would crowd).
+  void log_numbers() {
+    PLFLT x0, x1, y0, y1;
+    pls_->gvpw(x0, x1, y0, y1);
+    std::vector<double> values;
+    auto collect = [&](std::initializer_list<double> mantissas) {
+      values.clear();
+      for (int k = static_cast<int>(std::floor(x0)) - 1; k <= static_cast<int>(std::ceil(x1)); ++k) {
+        for (double m : mantissas) {
+          const double v = m * std::pow(10.0, k);
+          if (std::log10(v) >= x0 && std::log10(v) <= x1) values.push_back(v);
+        }
+      }
+    };
+    collect({1.0, 2.0, 5.0});
+    if (values.size() < 3) collect({1.0, 1.5, 2.0, 3.0, 4.0, 5.0, 6.0, 7.0, 8.0, 9.0});
+    if (values.size() > 12) {
+      values.erase(std::remove_if(values.begin(), values.end(),
+                                  [](double v) { return std::abs(std::log10(v) - std::round(std::log10(v))) > 1e-9; }),
+                   values.end());
+    }
+    pls_->col0(kInk);
+    for (double v : values) {
+      const double pos = (std::log10(v) - x0) / (x1 - x0);
+      const std::string text = fmt::format("{:g}", v);
+      pls_->mtex("b", 1.5, pos, 0.5, text.c_str());
+    }
   }
 
   void xlabel(const std::string& text, double disp = 2.9) {
@@ -638,7 +676,7 @@ void draw_periodogram_panel(Canvas& c, const Viewport& v, const PeriodogramPanel
     if (!l.label.empty()) {
       c.set_text(0.8);
       c.p().col0(col);
-      c.p().ptex(lx1 - 0.01 * (lx1 - lx0), l.value + 0.018 * (yhi - ylo), 1, 0, 1.0, esc(l.label).c_str());
+      c.p().ptex(lx1 - 0.01 * (lx1 - lx0), l.value + 0.035 * (yhi - ylo), 1, 0, 1.0, esc(l.label).c_str());
       c.set_text(1.0);
     }
   }

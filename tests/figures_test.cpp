@@ -436,6 +436,9 @@ TEST_SUITE("figures") {
       CHECK_THROWS_WITH_AS(write_time_series_figure(data, dir + "/missing/x.png"),
                            (dir + "/missing/x.png: directory " + dir + "/missing does not exist").c_str(), InputError);
       CHECK_THROWS_WITH_AS(write_time_series_figure(data, dir), (dir + ": is a directory").c_str(), InputError);
+      TimeSeriesFigureData huge;
+      huge.instruments = {{"north", {1.0, 2.0, 3.0}, {1e308, -1e308, 0.0}, {}}};
+      CHECK_THROWS_AS(write_time_series_figure(huge, out), InputError);
       FigureOptions o;
       o.height_px = 9000;
       CHECK_THROWS_WITH_AS(write_time_series_figure(data, out, o),
