@@ -1,0 +1,222 @@
+// Bayesian evidence by nested sampling (Skilling 2006, Bayesian Analysis 1, 833), with
+// new live points found by slice sampling inside the likelihood constraint along
+// directions from the live points' covariance (after Handley, Hobson & Lasenby 2015,
+// MNRAS 450, L61), and the evidence of 0, 1, 2, ... Keplerians for model comparison.
+//
+// The algorithm, as implemented here:
+//   * n live points are drawn uniformly in the unit cube [0, 1)^d; a prior transform maps
+//     each to the parameters theta (the inverse-CDF of every prior), so uniform in the
+//     cube is the prior in theta.
+//   * Each iteration removes the `batch_size` lowest-likelihood live points. The j-th
+//     removed point (j = 0, 1, ...) closes a prior-volume shell with expected shrinkage
+//     ln X_i = ln X_{i-1} - 1/(n - j) (the live set shrinks while points are removed),
+//     and its weight is L_i (X_{i-1} - X_i). The batch is then refilled with points drawn
+//     inside L > L* (L* the highest removed likelihood), each by a slice-sampling walk that
+//     starts from a randomly chosen surviving live point, so the live set is again n
+//     points uniform inside the constraint. This removal-then-refill keeps the shrinkage
+//     statistics exact for any batch size.
+//   * Replacements of one batch run concurrently (`threads`), each with its own random
+//     stream derived from (seed, replacement number): the result is bit-identical for a
+//     seed whatever the number of threads. It depends on `batch_size`, which is therefore
+//     an option of its own and not the thread count.
+//   * Slice sampling: the live points' covariance in the cube is factored (Cholesky,
+//     C = R R^T) once per batch; a walk takes `slice_steps` one-dimensional slice moves
+//     (Neal 2003, Ann. Statist. 31, 705: stepping out, then shrinkage), cycling through a
+//     random orthonormal basis e_1..e_d of the whitened space, direction R e_k, initial
+//     bracket width |R e_k| placed at random around the current point.
+//   * Stop when the live points can add at most `ln_z_tolerance` to ln Z
+//     (ln(Z + L_max X) - ln Z < tolerance); the final live points are then added, each
+//     with weight L X / n.
+//   * Reported: ln Z, its error sqrt(H / n) (Skilling 2006, section 9), the information
+//     H = sum_i p_i ln(L_i / Z) in nats, and every dead and final live point with its
+//     posterior weight p_i = L_i w_i / Z.
+#pragma once
+
+#include <cstdint>
+#include <functional>
+#include <limits>
+#include <span>
+#include <string>
+#include <vector>
+
+#include "apsides/keplerian_model.h"
+#include "apsides/prior.h"
+
+namespace apsides {
+
+// What nested sampling integrates: a prior given as a transform of the unit cube and a
+// log-likelihood. Both are called concurrently from several threads and must be
+// thread-safe (KeplerianModel::log_likelihood is).
+struct NestedProblem {
+  int dimension = 0;
+  // Writes theta (size `n_params`, >= dimension allowed) for a point u in [0, 1)^dimension.
+  std::function<void(std::span<const double> u, std::span<double> theta)> prior_transform;
+  int n_params = 0;  // size of theta; 0 means equal to `dimension`
+  // ln L(theta); -inf (or NaN) rejects the point.
+  std::function<double(std::span<const double> theta)> log_likelihood;
+  std::vector<std::string> names;  // optional parameter names (theta order), for reports
+};
+
+enum class NestedTermination {
+  kNotRun,
+  kConverged,         // remaining live-point contribution below ln_z_tolerance
+  kMaxIterations,     // stopped by max_iterations: ln Z is a lower bound, error understated
+  kSliceFailed,       // slice sampling could not find a point inside the constraint
+  kBadLikelihood,     // no finite likelihood among the initial live points
+};
+std::string to_string(NestedTermination t);
+
+struct NestedOptions {
+  // Live points n. The ln Z error scales as sqrt(H / n); 400 gives ~0.2-0.3 nats for a
+  // typical RV problem with H ~ 20-40 nats. Range >= 2 * batch_size + 1 and >= dimension + 1.
+  int live_points = 400;
+  // Seed of every random stream (initial live points, slice walks).
+  std::uint64_t seed = 1;
+  // Worker threads for the replacements of a batch; 0 = hardware concurrency. The result
+  // does not depend on it.
+  int threads = 0;
+  // Live points removed and replaced per iteration (>= 1). The result depends on it (the
+  // shrinkage treatment is exact for any value); keep it small against live_points.
+  int batch_size = 2;
+  // Slice moves per replacement walk; 0 means 3 x dimension (Handley et al. 2015 use
+  // 5 x dimension; 3 x is enough for the unimodal-per-mode RV problems, tested against
+  // the analytic Gaussians in tests/evidence_test.cpp).
+  int slice_steps = 0;
+  // Stop when the live points can change ln Z by less than this (nats).
+  double ln_z_tolerance = 0.01;
+  // Hard cap on iterations (batches); 0 = no cap.
+  long max_iterations = 0;
+  // Called every so often with (iterations done, current ln Z, ln(remaining)/ln Z gap),
+  // for progress bars. May be empty. Called from the calling thread only.
+  std::function<void(long iteration, double ln_z, double ln_remaining)> progress;
+
+  // "" when valid, else "field = value: must be ...".
+  std::string Validate() const;
+};
+
+// One dead (or final live) point.
+struct NestedSample {
+  std::vector<double> theta;
+  double ln_like = 0.0;
+  double ln_prior_volume = 0.0;  // expected ln X at which the point was removed
+  double ln_weight = 0.0;        // normalised posterior weight: sum exp(ln_weight) = 1
+};
+
+struct NestedResult {
+  NestedTermination termination = NestedTermination::kNotRun;
+  std::string message = "Nested sampling was not run.";
+  double ln_evidence = -std::numeric_limits<double>::infinity();
+  double ln_evidence_err = std::numeric_limits<double>::quiet_NaN();  // sqrt(H / n_live)
+  double information_nats = std::numeric_limits<double>::quiet_NaN();  // H
+  double ln_like_max = -std::numeric_limits<double>::infinity();
+  std::vector<double> theta_max_like;
+  int live_points = 0;
+  long iterations = 0;             // batches
+  long likelihood_calls = 0;
+  double seconds = 0.0;
+  std::vector<NestedSample> samples;  // dead points, then the final live points
+  std::vector<std::string> names;
+
+  double effective_sample_size() const;  // Kish: 1 / sum p_i^2
+  // n equally weighted posterior draws (systematic resampling, deterministic for a seed).
+  std::vector<std::vector<double>> equal_weight_samples(std::size_t n, std::uint64_t seed) const;
+  // Weighted quantile of parameter `index` (q in [0, 1]).
+  double weighted_quantile(std::size_t index, double q) const;
+
+  std::string BriefReport() const;
+  std::string FullReport() const;
+};
+
+NestedResult run_nested_sampling(const NestedProblem& problem, const NestedOptions& options);
+
+// ---------------------------------------------------------------------------------------
+// The radial-velocity problem for nested sampling.
+//
+// Prior transform from ModelPriors (prior.h): every parameter through its Prior::quantile;
+// each planet's (sqrt e cos w, sqrt e sin w) from e = EccentricityPrior::quantile_e(u1)
+// and w = 2 pi u2 - pi (w uniform, so the pair follows the prior of prior.h).
+// Time of conjunction: when `phase_conjunction` is set (default), t_conj = t_ref + (u - 1/2) P,
+// uniform over one period around the data's reference epoch, whatever its Prior says.
+// The likelihood is periodic in t_conj with period P, so this is the same evidence as a
+// uniform t_conj prior over any whole number of periods, without the many copies of
+// each mode a wider window would have the sampler explore.
+//
+// Labelling by increasing period (ModelPriors::order_periods): when every planet has the
+// same priors, the k planets are drawn from the unordered (independent, identical) prior
+// and their whole parameter blocks sorted by period. The sorted draw follows the ordered
+// prior k! prod p(P_j) ... on P_1 < ... < P_k, which is normalised; as the likelihood is
+// symmetric under relabelling, the evidence equals the unordered one, and each mode is
+// counted once. Note ModelPriors::log_density omits the k! (it integrates to 1/k!): add
+// ln k! to it to get the density the evidence uses. When planets have different priors
+// the ordering is imposed as a constraint (L = 0 outside) and the evidence divided by the
+// prior probability of the ordering, estimated by Monte Carlo (see RvEvidenceProblem).
+struct RvEvidenceProblem {
+  NestedProblem problem;
+  double ln_evidence_offset = 0.0;  // to add to ln Z (ordering normalisation, see above)
+  std::string ordering_note;        // how the labelling entered the evidence
+  std::vector<std::string> prior_notes;  // one line per prior, for the report
+};
+RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const ModelPriors& priors,
+                                           bool phase_conjunction = true);
+
+// ---------------------------------------------------------------------------------------
+// Model comparison over 0..N planets.
+
+struct ComparisonRow {
+  int n_planets = 0;
+  int n_params = 0;
+  double ln_like_max = -std::numeric_limits<double>::infinity();
+  double bic = std::numeric_limits<double>::quiet_NaN();   // k ln n - 2 ln L
+  double aicc = std::numeric_limits<double>::quiet_NaN();  // 2k - 2 ln L + 2k(k+1)/(n-k-1)
+  double ln_evidence = -std::numeric_limits<double>::infinity();
+  double ln_evidence_err = std::numeric_limits<double>::quiet_NaN();
+  double information_nats = std::numeric_limits<double>::quiet_NaN();
+  double ln_bayes_vs_previous = std::numeric_limits<double>::quiet_NaN();  // ln Z_k - ln Z_{k-1}
+  double ln_bayes_err = std::numeric_limits<double>::quiet_NaN();
+  std::string bayes_wording;  // Kass & Raftery 1995 (see kass_raftery_wording)
+  double seconds = 0.0;
+  long likelihood_calls = 0;
+  NestedResult nested;
+  std::string ordering_note;
+};
+
+// Kass & Raftery 1995 (JASA 90, 773), on ln B: < 0 "favours the simpler model",
+// 0-1 "barely worth mentioning", 1-3 "positive", 3-5 "strong", > 5 "very strong".
+std::string kass_raftery_wording(double ln_bayes);
+
+// BIC = k ln n - 2 ln L; AICc = 2k - 2 ln L + 2k(k+1)/(n-k-1) (NaN when n <= k + 1).
+double bic(double ln_like_max, int n_params, std::size_t n_points);
+double aicc(double ln_like_max, int n_params, std::size_t n_points);
+
+struct CompareOptions {
+  int max_planets = 2;          // compare 0..max_planets Keplerians
+  NestedOptions nested;         // sampler settings for every k
+  // Selection rule: the largest k whose ln B against k - 1 exceeds this, each smaller k
+  // also passing (a planet is added only while each addition is supported). Kass & Raftery
+  // call ln B > 5 "very strong".
+  double bayes_threshold = 5.0;
+  bool phase_conjunction = true;  // see make_rv_evidence_problem
+  std::string Validate() const;
+};
+
+struct CompareResult {
+  std::vector<ComparisonRow> rows;
+  int selected_n_planets = -1;
+  std::string selection_rule;
+  std::vector<std::string> notes;  // cautions: m sin i, aliases, priors stated, ...
+  std::string message = "Model comparison was not run.";
+  double seconds = 0.0;
+
+  std::string BriefReport() const;
+  std::string FullReport() const;
+};
+
+// Builds the model for each k from `data` and `base_layout` (n_planets replaced), the
+// priors from `priors_for(layout)`, and runs nested sampling for each. Throws InputError
+// when options are invalid.
+CompareResult compare_planet_counts(const VelocityData& data, const ModelLayout& base_layout,
+                                    const std::function<ModelPriors(const ModelLayout&)>& priors_for,
+                                    const CompareOptions& options,
+                                    const std::function<void(int k, const std::string& status)>& on_status = {});
+
+}  // namespace apsides

@@ -1,0 +1,730 @@
+#include "apsides/evidence.h"
+
+#include <fmt/format.h>
+
+#include <Eigen/Cholesky>
+#include <Eigen/Dense>
+#include <algorithm>
+#include <array>
+#include <atomic>
+#include <chrono>
+#include <cmath>
+#include <condition_variable>
+#include <mutex>
+#include <numeric>
+#include <random>
+#include <thread>
+
+#include "apsides/constants.h"
+#include "apsides/error.h"
+
+namespace apsides {
+namespace {
+constexpr double kInf = std::numeric_limits<double>::infinity();
+
+double log_add_exp(double a, double b) {
+  if (a == -kInf) return b;
+  if (b == -kInf) return a;
+  const double m = std::max(a, b);
+  return m + std::log1p(std::exp(-std::fabs(a - b)));
+}
+
+// An independent random stream per (seed, stream id): the same numbers whichever thread
+// draws them, which is what makes the run independent of the thread count.
+std::mt19937_64 make_stream(std::uint64_t seed, std::uint64_t stream) {
+  std::seed_seq seq{static_cast<std::uint32_t>(seed), static_cast<std::uint32_t>(seed >> 32),
+                    static_cast<std::uint32_t>(stream), static_cast<std::uint32_t>(stream >> 32),
+                    0x6e657374u};
+  return std::mt19937_64(seq);
+}
+
+// A small persistent pool: run(count, fn) calls fn(0..count-1) on the workers and the
+// calling thread and returns when all are done. Task i never depends on which thread
+// runs it.
+class Workers {
+ public:
+  explicit Workers(int n_threads) {
+    for (int i = 1; i < n_threads; ++i) threads_.emplace_back([this] { loop(); });
+  }
+  ~Workers() {
+    {
+      std::lock_guard<std::mutex> lock(mutex_);
+      stop_ = true;
+    }
+    cv_.notify_all();
+    for (auto& t : threads_) t.join();
+  }
+  void run(int count, const std::function<void(int)>& fn) {
+    if (threads_.empty() || count <= 1) {
+      for (int i = 0; i < count; ++i) fn(i);
+      return;
+    }
+    {
+      std::lock_guard<std::mutex> lock(mutex_);
+      fn_ = &fn;
+      count_ = count;
+      next_.store(0);
+      pending_ = count;
+      ++generation_;
+    }
+    cv_.notify_all();
+    work();
+    std::unique_lock<std::mutex> lock(mutex_);
+    done_cv_.wait(lock, [this] { return pending_ == 0; });
+    fn_ = nullptr;
+  }
+
+ private:
+  void work() {
+    for (;;) {
+      const int i = next_.fetch_add(1);
+      if (i >= count_) return;
+      (*fn_)(i);
+      std::lock_guard<std::mutex> lock(mutex_);
+      if (--pending_ == 0) done_cv_.notify_all();
+    }
+  }
+  void loop() {
+    std::uint64_t seen = 0;
+    for (;;) {
+      {
+        std::unique_lock<std::mutex> lock(mutex_);
+        cv_.wait(lock, [&] { return stop_ || (generation_ != seen && fn_ != nullptr); });
+        if (stop_) return;
+        seen = generation_;
+      }
+      work();
+    }
+  }
+  std::vector<std::thread> threads_;
+  std::mutex mutex_;
+  std::condition_variable cv_, done_cv_;
+  const std::function<void(int)>* fn_ = nullptr;
+  int count_ = 0;
+  std::atomic<int> next_{0};
+  int pending_ = 0;
+  std::uint64_t generation_ = 0;
+  bool stop_ = false;
+};
+
+struct LivePoint {
+  std::vector<double> u, theta;
+  double ln_like = -kInf;
+};
+
+struct Evaluator {
+  const NestedProblem& problem;
+  int n_params;
+  // Returns ln L at cube point u (filling theta); -inf outside the cube.
+  double operator()(std::span<const double> u, std::span<double> theta) const {
+    for (double x : u)
+      if (!(x >= 0.0 && x < 1.0)) return -kInf;
+    problem.prior_transform(u, theta);
+    const double l = problem.log_likelihood(theta);
+    return std::isnan(l) ? -kInf : l;
+  }
+};
+
+struct WalkOutcome {
+  LivePoint point;
+  long calls = 0;
+  bool ok = false;
+};
+
+// One replacement: a slice-sampling walk from `start` inside ln L > ln_like_min.
+WalkOutcome slice_walk(const Evaluator& eval, const LivePoint& start, double ln_like_min,
+                       const Eigen::MatrixXd& chol, int steps, std::mt19937_64& rng) {
+  const int d = static_cast<int>(start.u.size());
+  std::uniform_real_distribution<double> unif(0.0, 1.0);
+  std::normal_distribution<double> gauss(0.0, 1.0);
+  WalkOutcome out;
+  out.point = start;
+  Eigen::VectorXd x = Eigen::Map<const Eigen::VectorXd>(start.u.data(), d);
+  Eigen::VectorXd y(d);
+  std::vector<double> theta(start.theta.size());
+  Eigen::MatrixXd basis;
+  auto inside = [&](const Eigen::VectorXd& p, double& ln_like) {
+    ++out.calls;
+    ln_like = eval(std::span<const double>(p.data(), static_cast<std::size_t>(d)), theta);
+    return ln_like > ln_like_min;
+  };
+  constexpr int kMaxStepOut = 32, kMaxShrink = 200;
+  for (int s = 0; s < steps; ++s) {
+    const int k = s % d;
+    if (k == 0) {
+      Eigen::MatrixXd g(d, d);
+      for (int i = 0; i < d; ++i)
+        for (int j = 0; j < d; ++j) g(i, j) = gauss(rng);
+      basis = Eigen::HouseholderQR<Eigen::MatrixXd>(g).householderQ();
+    }
+    const Eigen::VectorXd v = chol * basis.col(k);
+    double left = -unif(rng), right = left + 1.0, l = 0.0;
+    for (int i = 0; i < kMaxStepOut; ++i) {
+      y = x + left * v;
+      if (!inside(y, l)) break;
+      left -= 1.0;
+    }
+    for (int i = 0; i < kMaxStepOut; ++i) {
+      y = x + right * v;
+      if (!inside(y, l)) break;
+      right += 1.0;
+    }
+    bool moved = false;
+    for (int i = 0; i < kMaxShrink; ++i) {
+      const double t = left + unif(rng) * (right - left);
+      y = x + t * v;
+      if (inside(y, l)) {
+        x = y;
+        out.point.ln_like = l;
+        out.point.theta = theta;
+        moved = true;
+        break;
+      }
+      if (t < 0.0) left = t; else right = t;
+    }
+    if (!moved) return out;  // the bracket collapsed onto x without finding a point
+  }
+  out.point.u.assign(x.data(), x.data() + d);
+  out.ok = true;
+  return out;
+}
+
+}  // namespace
+
+std::string to_string(NestedTermination t) {
+  switch (t) {
+    case NestedTermination::kNotRun: return "not run";
+    case NestedTermination::kConverged: return "converged";
+    case NestedTermination::kMaxIterations: return "hit max_iterations";
+    case NestedTermination::kSliceFailed: return "slice sampling failed";
+    case NestedTermination::kBadLikelihood: return "no finite likelihood";
+  }
+  return "unknown";
+}
+
+std::string NestedOptions::Validate() const {
+  if (batch_size < 1) return fmt::format("batch_size = {}: must be >= 1", batch_size);
+  if (live_points < 2 * batch_size + 1)
+    return fmt::format("live_points = {}: must be >= 2 x batch_size + 1 = {}", live_points, 2 * batch_size + 1);
+  if (threads < 0) return fmt::format("threads = {}: must be >= 0", threads);
+  if (slice_steps < 0) return fmt::format("slice_steps = {}: must be >= 0", slice_steps);
+  if (!(ln_z_tolerance > 0.0) || !std::isfinite(ln_z_tolerance))
+    return fmt::format("ln_z_tolerance = {}: must be > 0", ln_z_tolerance);
+  if (max_iterations < 0) return fmt::format("max_iterations = {}: must be >= 0", max_iterations);
+  return "";
+}
+
+NestedResult run_nested_sampling(const NestedProblem& problem, const NestedOptions& options) {
+  if (const std::string v = options.Validate(); !v.empty()) throw InputError("nested sampling: " + v);
+  if (problem.dimension < 1) throw InputError("nested sampling: the problem has no free parameter");
+  if (options.live_points < problem.dimension + 1)
+    throw InputError(fmt::format("live_points = {}: must be >= dimension + 1 = {}", options.live_points,
+                                 problem.dimension + 1));
+  const auto t_start = std::chrono::steady_clock::now();
+  const int d = problem.dimension;
+  const int p = problem.n_params > 0 ? problem.n_params : d;
+  const int n = options.live_points;
+  const int batch = options.batch_size;
+  const int steps = options.slice_steps > 0 ? options.slice_steps : 3 * d;
+  const int n_threads = options.threads > 0 ? options.threads
+                                            : std::max(1, static_cast<int>(std::thread::hardware_concurrency()));
+  Workers workers(n_threads);
+  const Evaluator eval{problem, p};
+
+  NestedResult res;
+  res.names = problem.names;
+  res.live_points = n;
+
+  // Initial live points: uniform in the cube (one stream per point).
+  std::vector<LivePoint> live(static_cast<std::size_t>(n));
+  workers.run(n, [&](int i) {
+    auto rng = make_stream(options.seed, static_cast<std::uint64_t>(i));
+    std::uniform_real_distribution<double> unif(0.0, 1.0);
+    LivePoint& lp = live[static_cast<std::size_t>(i)];
+    lp.u.resize(static_cast<std::size_t>(d));
+    lp.theta.resize(static_cast<std::size_t>(p));
+    for (double& x : lp.u) x = unif(rng);
+    lp.ln_like = eval(lp.u, lp.theta);
+  });
+  long calls = n;
+  if (std::none_of(live.begin(), live.end(), [](const LivePoint& l) { return std::isfinite(l.ln_like); })) {
+    res.termination = NestedTermination::kBadLikelihood;
+    res.message = "No initial live point has a finite likelihood: check the priors and the data.";
+    return res;
+  }
+
+  double ln_x = 0.0, ln_z = -kInf;
+  std::uint64_t replacement_stream = static_cast<std::uint64_t>(n);
+  std::vector<int> order(static_cast<std::size_t>(n));
+  std::vector<int> removed(static_cast<std::size_t>(batch));
+  std::vector<WalkOutcome> outcomes(static_cast<std::size_t>(batch));
+  res.termination = NestedTermination::kConverged;
+  for (long it = 0;; ++it) {
+    double ln_like_max = -kInf;
+    for (const auto& l : live) ln_like_max = std::max(ln_like_max, l.ln_like);
+    const double ln_remaining = ln_like_max + ln_x;
+    if (ln_z > -kInf && log_add_exp(ln_z, ln_remaining) - ln_z < options.ln_z_tolerance) break;
+    if (options.max_iterations > 0 && it >= options.max_iterations) {
+      res.termination = NestedTermination::kMaxIterations;
+      break;
+    }
+    if (options.progress && it % 50 == 0) options.progress(it, ln_z, ln_remaining);
+
+    // Remove the `batch` lowest points (ties broken by index, for determinism).
+    std::iota(order.begin(), order.end(), 0);
+    std::partial_sort(order.begin(), order.begin() + batch, order.end(), [&](int a, int b) {
+      const double la = live[static_cast<std::size_t>(a)].ln_like, lb = live[static_cast<std::size_t>(b)].ln_like;
+      return la < lb || (la == lb && a < b);
+    });
+    for (int j = 0; j < batch; ++j) {
+      const LivePoint& w = live[static_cast<std::size_t>(order[static_cast<std::size_t>(j)])];
+      const double shrink = 1.0 / static_cast<double>(n - j);
+      const double ln_x_new = ln_x - shrink;
+      const double ln_w = w.ln_like + ln_x + std::log(-std::expm1(-shrink));
+      ln_z = log_add_exp(ln_z, ln_w);
+      res.samples.push_back({w.theta, w.ln_like, ln_x_new, ln_w});
+      ln_x = ln_x_new;
+      removed[static_cast<std::size_t>(j)] = order[static_cast<std::size_t>(j)];
+    }
+    const double ln_like_star = live[static_cast<std::size_t>(removed.back())].ln_like;
+
+    // Survivors strictly inside the constraint are the walk starts; their covariance
+    // (in the cube) sets the slice directions.
+    std::vector<int> starts;
+    for (int i = batch; i < n; ++i)
+      if (live[static_cast<std::size_t>(order[static_cast<std::size_t>(i)])].ln_like > ln_like_star)
+        starts.push_back(order[static_cast<std::size_t>(i)]);
+    std::sort(starts.begin(), starts.end());
+    if (starts.empty()) {
+      res.termination = NestedTermination::kSliceFailed;
+      res.message = "Every live point sits on the likelihood constraint (a likelihood plateau).";
+      break;
+    }
+    Eigen::MatrixXd pts(static_cast<Eigen::Index>(n - batch), d);
+    for (int i = batch; i < n; ++i)
+      for (int k = 0; k < d; ++k)
+        pts(i - batch, k) = live[static_cast<std::size_t>(order[static_cast<std::size_t>(i)])].u[static_cast<std::size_t>(k)];
+    const Eigen::RowVectorXd mean = pts.colwise().mean();
+    const Eigen::MatrixXd centred = pts.rowwise() - mean;
+    Eigen::MatrixXd cov = centred.transpose() * centred / std::max(1.0, static_cast<double>(n - batch - 1));
+    cov.diagonal().array() += 1e-12;
+    Eigen::LLT<Eigen::MatrixXd> llt(cov);
+    Eigen::MatrixXd chol = llt.info() == Eigen::Success
+                               ? Eigen::MatrixXd(llt.matrixL())
+                               : Eigen::MatrixXd(cov.diagonal().cwiseSqrt().asDiagonal());
+
+    const std::uint64_t first_stream = replacement_stream;
+    replacement_stream += static_cast<std::uint64_t>(batch);
+    workers.run(batch, [&](int j) {
+      auto rng = make_stream(options.seed, first_stream + static_cast<std::uint64_t>(j));
+      std::uniform_int_distribution<std::size_t> pick(0, starts.size() - 1);
+      const LivePoint& start = live[static_cast<std::size_t>(starts[pick(rng)])];
+      outcomes[static_cast<std::size_t>(j)] = slice_walk(eval, start, ln_like_star, chol, steps, rng);
+    });
+    bool failed = false;
+    for (int j = 0; j < batch; ++j) {
+      auto& o = outcomes[static_cast<std::size_t>(j)];
+      calls += o.calls;
+      if (!o.ok) failed = true;
+      live[static_cast<std::size_t>(removed[static_cast<std::size_t>(j)])] = std::move(o.point);
+    }
+    res.iterations = it + 1;
+    if (failed) {
+      res.termination = NestedTermination::kSliceFailed;
+      res.message = "A slice-sampling walk found no point inside the likelihood constraint.";
+      break;
+    }
+  }
+
+  // The final live points share the remaining volume equally.
+  std::sort(live.begin(), live.end(), [](const LivePoint& a, const LivePoint& b) { return a.ln_like < b.ln_like; });
+  for (const auto& l : live) {
+    const double ln_w = l.ln_like + ln_x - std::log(static_cast<double>(n));
+    ln_z = log_add_exp(ln_z, ln_w);
+    res.samples.push_back({l.theta, l.ln_like, ln_x, ln_w});
+  }
+  // Normalise the weights, and H = sum p ln L - ln Z.
+  double h = 0.0;
+  for (auto& s : res.samples) {
+    s.ln_weight -= ln_z;
+    if (std::isfinite(s.ln_like) && s.ln_weight > -kInf) h += std::exp(s.ln_weight) * s.ln_like;
+    if (s.ln_like > res.ln_like_max) {
+      res.ln_like_max = s.ln_like;
+      res.theta_max_like = s.theta;
+    }
+  }
+  h -= ln_z;
+  res.ln_evidence = ln_z;
+  res.information_nats = std::max(0.0, h);
+  res.ln_evidence_err = std::sqrt(res.information_nats / n);
+  res.likelihood_calls = calls;
+  res.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t_start).count();
+  if (res.termination == NestedTermination::kConverged) {
+    res.message = fmt::format("Converged: the live points can add less than {:g} to ln Z.", options.ln_z_tolerance);
+  } else if (res.termination == NestedTermination::kMaxIterations) {
+    res.message = "Stopped at max_iterations before convergence: ln Z and its error are not reliable.";
+  }
+  return res;
+}
+
+double NestedResult::effective_sample_size() const {
+  double s = 0.0;
+  for (const auto& x : samples) s += std::exp(2.0 * x.ln_weight);
+  return s > 0.0 ? 1.0 / s : 0.0;
+}
+
+std::vector<std::vector<double>> NestedResult::equal_weight_samples(std::size_t n, std::uint64_t seed) const {
+  std::vector<std::vector<double>> out;
+  if (samples.empty() || n == 0) return out;
+  auto rng = make_stream(seed, 0xe9a1ULL);
+  const double u0 = std::uniform_real_distribution<double>(0.0, 1.0)(rng);
+  double cum = 0.0;
+  std::size_t j = 0;
+  for (std::size_t i = 0; i < n; ++i) {
+    const double target = (static_cast<double>(i) + u0) / static_cast<double>(n);
+    while (j < samples.size() && cum + std::exp(samples[j].ln_weight) < target) cum += std::exp(samples[j++].ln_weight);
+    out.push_back(samples[std::min(j, samples.size() - 1)].theta);
+  }
+  // Systematic resampling keeps the dead-point order; shuffle so draws are exchangeable.
+  std::shuffle(out.begin(), out.end(), rng);
+  return out;
+}
+
+double NestedResult::weighted_quantile(std::size_t index, double q) const {
+  std::vector<std::pair<double, double>> xw;
+  for (const auto& s : samples)
+    if (index < s.theta.size() && s.ln_weight > -kInf) xw.emplace_back(s.theta[index], std::exp(s.ln_weight));
+  if (xw.empty()) return std::numeric_limits<double>::quiet_NaN();
+  std::sort(xw.begin(), xw.end());
+  double total = 0.0;
+  for (const auto& e : xw) total += e.second;
+  double cum = 0.0;
+  for (const auto& e : xw) {
+    cum += e.second;
+    if (cum >= q * total) return e.first;
+  }
+  return xw.back().first;
+}
+
+std::string NestedResult::BriefReport() const {
+  if (termination == NestedTermination::kNotRun) return message;
+  return fmt::format("ln Z = {:.3f} +- {:.3f} (H = {:.2f} nats, {} live points, {} iterations, {} likelihood calls, "
+                     "{:.1f} s): {}",
+                     ln_evidence, ln_evidence_err, information_nats, live_points, iterations, likelihood_calls,
+                     seconds, to_string(termination));
+}
+
+std::string NestedResult::FullReport() const {
+  std::string s = BriefReport() + "\n" + message + "\n";
+  s += fmt::format("max ln L = {:.3f}; posterior effective sample size {:.0f} of {} points\n", ln_like_max,
+                   effective_sample_size(), samples.size());
+  if (!names.empty() && !samples.empty()) {
+    for (std::size_t i = 0; i < names.size() && i < samples.front().theta.size(); ++i) {
+      const double m = weighted_quantile(i, 0.5);
+      s += fmt::format("  {:<24} {:>14.6g}  -{:.3g} +{:.3g}\n", names[i], m, m - weighted_quantile(i, 0.15865),
+                       weighted_quantile(i, 0.84135) - m);
+    }
+  }
+  return s;
+}
+
+}  // namespace apsides
+
+// ---------------------------------------------------------------------------------------
+// The radial-velocity problem.
+namespace apsides {
+namespace {
+
+bool same_prior(const Prior& a, const Prior& b) {
+  return a.kind == b.kind && a.a == b.a && a.b == b.b && a.c == b.c && a.d == b.d;
+}
+bool same_ecc_prior(const EccentricityPrior& a, const EccentricityPrior& b) {
+  return a.kind == b.kind && a.a == b.a && a.b == b.b && a.max_ecc == b.max_ecc;
+}
+
+// Where each cube coordinate goes.
+enum class SlotKind { kPlain, kEccentricity, kOmega, kPhase };
+struct Slot {
+  SlotKind kind;
+  std::size_t index;  // theta index (for kEccentricity/kOmega: the planet's h index)
+  int planet;
+};
+
+}  // namespace
+
+RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const ModelPriors& priors,
+                                           bool phase_conjunction) {
+  const ModelLayout layout = model.layout();
+  const std::size_t n_params = layout.n_params();
+  if (priors.parameter.size() != n_params || priors.eccentricity.size() != static_cast<std::size_t>(layout.n_planets))
+    throw InputError(fmt::format("evidence: the priors have {} parameters for a model with {}",
+                                 priors.parameter.size(), n_params));
+  const int k = layout.n_planets;
+  const auto names = layout.names(model.data().instrument_names);
+
+  RvEvidenceProblem out;
+  std::vector<Slot> slots;
+  std::vector<double> fixed(n_params, 0.0);
+  std::vector<bool> phase(static_cast<std::size_t>(k), false);
+  for (std::size_t i = 0; i < n_params; ++i) {
+    const bool in_planet = i < static_cast<std::size_t>(5 * k);
+    const int planet = in_planet ? static_cast<int>(i / 5) : -1;
+    const std::size_t slot = i % 5;
+    const Prior& pr = priors.parameter[i];
+    if (in_planet && (slot == 2 || slot == 3)) {
+      const EccentricityPrior& ep = priors.eccentricity[static_cast<std::size_t>(planet)];
+      if (ep.kind == EccentricityPriorKind::kCircular) continue;  // h = k = 0
+      slots.push_back({slot == 2 ? SlotKind::kEccentricity : SlotKind::kOmega, i - slot + 2, planet});
+      if (slot == 2) out.prior_notes.push_back(fmt::format("{}.eccentricity  {}", planet_label(planet), ep.describe()));
+      continue;
+    }
+    if (pr.kind == PriorKind::kFixed) {
+      fixed[i] = pr.a;
+      out.prior_notes.push_back(fmt::format("{}  fixed at {:g}", names[i], pr.a));
+      continue;
+    }
+    if (in_planet && slot == 4 && phase_conjunction && pr.kind == PriorKind::kUniform) {
+      phase[static_cast<std::size_t>(planet)] = true;
+      slots.push_back({SlotKind::kPhase, i, planet});
+      out.prior_notes.push_back(fmt::format(
+          "{}  uniform over one period centred on {:g} d (phase prior; same evidence as {})", names[i],
+          0.5 * (pr.a + pr.b), pr.describe()));
+      continue;
+    }
+    slots.push_back({SlotKind::kPlain, i, planet});
+    out.prior_notes.push_back(fmt::format("{}  {}", names[i], pr.describe()));
+  }
+
+  // Are the planets exchangeable (identical priors)? Then sort whole blocks by period.
+  bool exchangeable = true;
+  for (int j = 1; j < k; ++j) {
+    for (int s = 0; s < 5; ++s)
+      if (!same_prior(priors.parameter[static_cast<std::size_t>(5 * j + s)], priors.parameter[static_cast<std::size_t>(s)]))
+        exchangeable = false;
+    if (!same_ecc_prior(priors.eccentricity[static_cast<std::size_t>(j)], priors.eccentricity[0])) exchangeable = false;
+  }
+  const bool order = priors.order_periods && k > 1;
+  const bool sort_blocks = order && exchangeable;
+  const bool constrain = order && !exchangeable;
+  if (!order) {
+    out.ordering_note = k > 1 ? "planets not ordered by period (each mode counted k! times; evidence unaffected)"
+                              : "one planet or none: no labelling";
+  } else if (sort_blocks) {
+    out.ordering_note = fmt::format(
+        "planets labelled by increasing period: the {} planets are drawn from identical independent priors and "
+        "sorted by period; the sorted draw follows the ordered prior ({}! x the unordered density on "
+        "P_b < P_c < ...), normalised, so ln Z equals the unordered evidence (no correction added)",
+        k, k);
+  } else {
+    // Prior probability of the ordering, by Monte Carlo with a fixed seed.
+    auto rng = make_stream(0x5eedULL, 0x07dULL);
+    std::uniform_real_distribution<double> unif(0.0, 1.0);
+    constexpr int kDraws = 200000;
+    int hits = 0;
+    std::vector<double> per(static_cast<std::size_t>(k));
+    for (int n = 0; n < kDraws; ++n) {
+      for (int j = 0; j < k; ++j) per[static_cast<std::size_t>(j)] = priors.parameter[static_cast<std::size_t>(5 * j)].quantile(unif(rng));
+      if (std::is_sorted(per.begin(), per.end()) && std::adjacent_find(per.begin(), per.end()) == per.end()) ++hits;
+    }
+    if (hits == 0)
+      throw InputError("priors: the planets' period priors leave no room for P_b < P_c < ...; check the "
+                       "[priors] period ranges");
+    const double frac = static_cast<double>(hits) / kDraws;
+    out.ln_evidence_offset = -std::log(frac);
+    out.ordering_note = fmt::format(
+        "planets labelled by increasing period: the planets have different priors, so the ordering is a "
+        "constraint (zero likelihood outside) and ln Z includes -ln P(ordered) = {:.4f} (P(ordered) = {:.5f} "
+        "+- {:.5f} by Monte Carlo)",
+        out.ln_evidence_offset, frac, std::sqrt(frac * (1 - frac) / kDraws));
+  }
+
+  const ModelPriors pri = priors;
+  const std::vector<Slot> sl = slots;
+  const auto layout_copy = layout;
+  out.problem.dimension = static_cast<int>(slots.size());
+  out.problem.n_params = static_cast<int>(n_params);
+  out.problem.names = names;
+  out.problem.prior_transform = [pri, sl, fixed, layout_copy, sort_blocks, k](std::span<const double> u,
+                                                                             std::span<double> theta) {
+    for (std::size_t i = 0; i < theta.size(); ++i) theta[i] = fixed[i];
+    // Eccentricity and omega first land in (h, k) slots as (e, w), converted below.
+    std::vector<double> phase_u(static_cast<std::size_t>(k), -1.0);
+    for (std::size_t s = 0; s < sl.size(); ++s) {
+      const Slot& slot = sl[s];
+      switch (slot.kind) {
+        case SlotKind::kPlain: theta[slot.index] = pri.parameter[slot.index].quantile(u[s]); break;
+        case SlotKind::kEccentricity:
+          theta[slot.index] = pri.eccentricity[static_cast<std::size_t>(slot.planet)].quantile_e(u[s]);
+          break;
+        case SlotKind::kOmega: theta[slot.index + 1] = 2.0 * constants::kPi * u[s] - constants::kPi; break;
+        case SlotKind::kPhase: phase_u[static_cast<std::size_t>(slot.planet)] = u[s]; break;
+      }
+    }
+    for (int j = 0; j < k; ++j) {
+      const std::size_t b = static_cast<std::size_t>(5 * j);
+      const EccentricityPrior& ep = pri.eccentricity[static_cast<std::size_t>(j)];
+      if (ep.kind != EccentricityPriorKind::kCircular) {
+        const double e = theta[b + 2], w = theta[b + 3], r = std::sqrt(e);
+        theta[b + 2] = r * std::cos(w);
+        theta[b + 3] = r * std::sin(w);
+      }
+      const double pu = phase_u[static_cast<std::size_t>(j)];
+      if (pu >= 0.0) {
+        const Prior& tp = pri.parameter[b + 4];
+        theta[b + 4] = 0.5 * (tp.a + tp.b) + (pu - 0.5) * theta[b];
+      }
+    }
+    if (sort_blocks) {
+      std::array<double, 5> tmp{};
+      // Insertion sort of the planet blocks by period (k is small).
+      for (int j = 1; j < k; ++j) {
+        for (int m = j; m > 0 && theta[static_cast<std::size_t>(5 * m)] < theta[static_cast<std::size_t>(5 * (m - 1))]; --m) {
+          const std::size_t a = static_cast<std::size_t>(5 * m), c = static_cast<std::size_t>(5 * (m - 1));
+          for (int q = 0; q < 5; ++q) tmp[static_cast<std::size_t>(q)] = theta[a + static_cast<std::size_t>(q)];
+          for (int q = 0; q < 5; ++q) theta[a + static_cast<std::size_t>(q)] = theta[c + static_cast<std::size_t>(q)];
+          for (int q = 0; q < 5; ++q) theta[c + static_cast<std::size_t>(q)] = tmp[static_cast<std::size_t>(q)];
+        }
+      }
+    }
+    (void)layout_copy;
+  };
+  const KeplerianModel* m = &model;
+  out.problem.log_likelihood = [m, constrain, k](std::span<const double> theta) {
+    if (constrain)
+      for (int j = 1; j < k; ++j)
+        if (!(theta[static_cast<std::size_t>(5 * j)] > theta[static_cast<std::size_t>(5 * (j - 1))])) return -kInf;
+    return m->log_likelihood(theta);
+  };
+  return out;
+}
+
+std::string kass_raftery_wording(double ln_bayes) {
+  if (std::isnan(ln_bayes)) return "";
+  if (ln_bayes < 0.0) return "favours the simpler model";
+  if (ln_bayes < 1.0) return "barely worth mentioning";
+  if (ln_bayes < 3.0) return "positive";
+  if (ln_bayes < 5.0) return "strong";
+  return "very strong";
+}
+
+double bic(double ln_like_max, int n_params, std::size_t n_points) {
+  return n_params * std::log(static_cast<double>(n_points)) - 2.0 * ln_like_max;
+}
+
+double aicc(double ln_like_max, int n_params, std::size_t n_points) {
+  const double n = static_cast<double>(n_points), kk = n_params;
+  if (n <= kk + 1.0) return std::numeric_limits<double>::quiet_NaN();
+  return 2.0 * kk - 2.0 * ln_like_max + 2.0 * kk * (kk + 1.0) / (n - kk - 1.0);
+}
+
+}  // namespace apsides
+
+namespace apsides {
+
+std::string CompareOptions::Validate() const {
+  if (max_planets < 0 || max_planets > 9) return fmt::format("max_planets = {}: must be in 0..9", max_planets);
+  if (!std::isfinite(bayes_threshold)) return fmt::format("bayes_threshold = {}: must be finite", bayes_threshold);
+  return nested.Validate();
+}
+
+CompareResult compare_planet_counts(const VelocityData& data, const ModelLayout& base_layout,
+                                    const std::function<ModelPriors(const ModelLayout&)>& priors_for,
+                                    const CompareOptions& options,
+                                    const std::function<void(int k, const std::string& status)>& on_status) {
+  if (const std::string v = options.Validate(); !v.empty()) throw InputError("compare: " + v);
+  const auto t_start = std::chrono::steady_clock::now();
+  CompareResult res;
+  for (int k = 0; k <= options.max_planets; ++k) {
+    ModelLayout layout = base_layout;
+    layout.n_planets = k;
+    const ModelPriors priors = priors_for(layout);
+    const KeplerianModel model(data, layout);
+    RvEvidenceProblem prob = make_rv_evidence_problem(model, priors, options.phase_conjunction);
+    if (static_cast<std::size_t>(prob.problem.dimension) + 1 >= data.size())
+      throw InputError(fmt::format("compare: {} planet(s) need {} free parameters but the data have only {} points",
+                                   k, prob.problem.dimension, data.size()));
+    if (on_status) on_status(k, fmt::format("{} planet(s): {} free parameters", k, prob.problem.dimension));
+    NestedOptions nopt = options.nested;
+    if (nopt.live_points < prob.problem.dimension + 1) nopt.live_points = prob.problem.dimension + 1;
+    ComparisonRow row;
+    row.n_planets = k;
+    row.n_params = prob.problem.dimension;
+    row.nested = run_nested_sampling(prob.problem, nopt);
+    row.ordering_note = prob.ordering_note;
+    row.ln_evidence = row.nested.ln_evidence + prob.ln_evidence_offset;
+    row.ln_evidence_err = row.nested.ln_evidence_err;
+    row.information_nats = row.nested.information_nats;
+    row.ln_like_max = row.nested.ln_like_max;
+    row.bic = bic(row.ln_like_max, row.n_params, data.size());
+    row.aicc = aicc(row.ln_like_max, row.n_params, data.size());
+    row.seconds = row.nested.seconds;
+    row.likelihood_calls = row.nested.likelihood_calls;
+    if (k > 0) {
+      const ComparisonRow& prev = res.rows.back();
+      row.ln_bayes_vs_previous = row.ln_evidence - prev.ln_evidence;
+      row.ln_bayes_err = std::hypot(row.ln_evidence_err, prev.ln_evidence_err);
+      row.bayes_wording = kass_raftery_wording(row.ln_bayes_vs_previous);
+    }
+    {
+      // The largest model's prior lines cover every smaller one.
+      res.notes.erase(std::remove_if(res.notes.begin(), res.notes.end(),
+                                     [](const std::string& s) { return s.rfind("prior: ", 0) == 0; }),
+                      res.notes.end());
+      for (const auto& p : prob.prior_notes) res.notes.push_back("prior: " + p);
+    }
+    res.rows.push_back(std::move(row));
+  }
+  res.selected_n_planets = 0;
+  for (std::size_t k = 1; k < res.rows.size(); ++k) {
+    if (res.rows[k].ln_bayes_vs_previous > options.bayes_threshold &&
+        res.rows[k].nested.termination == NestedTermination::kConverged)
+      res.selected_n_planets = static_cast<int>(k);
+    else
+      break;
+  }
+  res.selection_rule = fmt::format(
+      "the largest k for which every step 0 -> 1 -> ... -> k has ln B(k vs k-1) > {:g} (Kass & Raftery 1995: "
+      "> 5 is \"very strong\")",
+      options.bayes_threshold);
+  bool failed = false;
+  for (const auto& r : res.rows)
+    if (r.nested.termination != NestedTermination::kConverged) failed = true;
+  res.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t_start).count();
+  res.message = failed ? "Nested sampling did not converge for every model: see the rows' messages."
+                       : fmt::format("Selected {} planet(s).", res.selected_n_planets);
+  res.notes.push_back(
+      "Bayes factors depend on the prior ranges (period, K) stated above: a wider prior lowers the evidence of "
+      "every model with planets.");
+  res.notes.push_back(
+      "A supported signal is not necessarily a planet: stellar activity and rotation, and aliases of a true "
+      "period (1 d, 1 yr, the window), can also be preferred; check activity indicators and the periodogram.");
+  res.notes.push_back("max ln L is the best point nested sampling visited (a lower bound of the true maximum).");
+  return res;
+}
+
+std::string CompareResult::BriefReport() const {
+  std::string s;
+  for (const auto& r : rows)
+    s += fmt::format("{}: ln Z = {:.2f} +- {:.2f}; ", r.n_planets, r.ln_evidence, r.ln_evidence_err);
+  return s + fmt::format("selected {} planet(s)", selected_n_planets);
+}
+
+std::string CompareResult::FullReport() const {
+  std::string s = fmt::format("{:>7} {:>6} {:>11} {:>10} {:>10} {:>16} {:>8} {:>14}  {}\n", "planets", "params",
+                              "max ln L", "BIC", "AICc", "ln Z", "H", "ln B vs k-1", "evidence (Kass & Raftery)");
+  for (const auto& r : rows) {
+    s += fmt::format("{:>7} {:>6} {:>11.2f} {:>10.2f} {:>10.2f} {:>9.2f} +- {:4.2f} {:>8.1f} ", r.n_planets, r.n_params,
+                     r.ln_like_max, r.bic, r.aicc, r.ln_evidence, r.ln_evidence_err, r.information_nats);
+    if (r.n_planets == 0)
+      s += fmt::format("{:>14}  {}\n", "-", "");
+    else
+      s += fmt::format("{:>7.2f} +- {:4.2f}  {}\n", r.ln_bayes_vs_previous, r.ln_bayes_err, r.bayes_wording);
+  }
+  s += fmt::format("Selected: {} planet(s) — rule: {}.\n", selected_n_planets, selection_rule);
+  for (const auto& r : rows)
+    if (r.nested.termination != NestedTermination::kConverged)
+      s += fmt::format("warning: {} planet(s): {}\n", r.n_planets, r.nested.message);
+  return s;
+}
+
+}  // namespace apsides
