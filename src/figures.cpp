@@ -312,9 +312,10 @@ class Canvas {
     pls_->gspa(xmin, xmax, ymin, ymax);
     page_w_mm_ = xmax - xmin;
     page_h_mm_ = ymax - ymin;
-    // Text about 1/45 of the page diagonal's geometric mean, scaled by the user.
-    const double size_factor = std::clamp(std::sqrt(options.width_px * options.height_px / (1200.0 * 800.0)), 0.6, 2.5);
-    text_scale_ = 0.62 * options.font_scale * size_factor;
+    // PLplot's default text height is proportional to the page; 0.62 of it reads well at
+    // 1200 x 800. Small images get relatively larger text so it stays legible.
+    const double size = std::sqrt(options.width_px * options.height_px / (1200.0 * 800.0));
+    text_scale_ = 0.62 * options.font_scale * std::max(1.0, 0.85 / size);
     set_text(1.0);
   }
 
@@ -331,12 +332,20 @@ class Canvas {
 
   // Text size relative to the figure's body text.
   void set_text(double rel) {
+    current_rel_ = rel;
     pls_->schr(0, text_scale_ * rel);
     PLFLT def, ht;
     pls_->gchr(def, ht);
     char_h_mm_ = ht;
   }
   double char_h_mm() const { return char_h_mm_; }
+  // The largest relative size (<= rel_max) at which `text` fits in `avail` (NDC width, or
+  // height for text along a vertical axis).
+  double fit_rel(const std::string& text, double avail, bool vertical, double rel_max) const {
+    const double unit = char_h_mm_ / (vertical ? page_h_mm_ : page_w_mm_) / current_rel_;
+    const double need = 0.72 * unit * static_cast<double>(std::max<std::size_t>(1, utf8_length(text)));
+    return std::min(rel_max, avail / need);
+  }
   // One character height as a fraction of page width / height.
   double cw() const { return char_h_mm_ / page_w_mm_; }
   double ch() const { return char_h_mm_ / page_h_mm_; }
@@ -416,7 +425,7 @@ class Canvas {
 
   // Light grid, then frame, ticks and (optionally) numeric labels.
   void axes(bool x_numbers, bool y_numbers, bool log_x = false, bool grid = true, double xtick = 0,
-            double ytick = 0) {
+            double ytick = 0, double number_rel = 0.9) {
     const std::string lx = log_x ? "l" : "";
     pls_->width(lw(1.0));
     pls_->lsty(1);
@@ -430,7 +439,7 @@ class Canvas {
     // Log axes get their numbers from log_numbers(): PLplot would label decades only.
     const std::string xo = "bcst" + lx + (x_numbers && !log_x ? "n" : "");
     const std::string yo = std::string("bcstv") + (y_numbers ? "n" : "");
-    set_text(0.9);
+    set_text(number_rel);
     pls_->box(xo.c_str(), xtick, 0, yo.c_str(), ytick, 0);
     if (log_x && x_numbers) log_numbers();
     set_text(1.0);
@@ -474,9 +483,9 @@ class Canvas {
     pls_->mtex("l", disp, 0.5, 0.5, esc(text).c_str());
   }
   // A small caption in the top-left corner inside the panel.
-  void caption(const std::string& text) {
+  void caption(const std::string& text, double rel = 0.9) {
     if (text.empty()) return;
-    set_text(0.9);
+    set_text(rel);
     pls_->col0(kInk);
     pls_->mtex("t", -1.4, 0.012, 0.0, esc(text).c_str());
     set_text(1.0);
@@ -562,6 +571,7 @@ class Canvas {
   double page_w_mm_ = 1, page_h_mm_ = 1;
   double text_scale_ = 1;
   double char_h_mm_ = 1;
+  double current_rel_ = 1;
   bool finished_ = false;
 };
 
@@ -954,8 +964,10 @@ FigureFile write_phase_fold_figure(const PhaseFoldFigureData& data, const std::s
     }
     yr.add(p.model_value);
     yr = yr.padded(0.06);
+    // Phase ticks every 0.25 where there is room, else every 0.5.
+    const double phase_tick = cell_w * c.width_px() > 250 ? 0.25 : 0.5;
     c.panel(vp[0], -0.5, 0.5, yr.lo, yr.hi);
-    c.axes(!with_res, true);
+    c.axes(!with_res, true, false, true, phase_tick);
     c.hline(0.0, -0.5, 0.5, kMuted, 3, 1.0);
     for (const auto& s : p.data) draw_series(c, styles, s, fold(s.time_bjd, p.t_ref_bjd, p.period_days));
     if (!p.model_phase.empty()) {
@@ -968,8 +980,10 @@ FigureFile write_phase_fold_figure(const PhaseFoldFigureData& data, const std::s
                              : p.subtitle.empty()   ? "Planet " + p.planet_label
                                                     : "Planet " + p.planet_label + ":  " + p.subtitle;
     c.set_text(1.0);
+    c.set_text(c.fit_rel(head, cell_w, false, 1.0));
     c.p().col0(kInk);
     c.p().mtex("t", 0.6, 0.0, 0.0, esc(head).c_str());
+    c.set_text(1.0);
     if (col == 0) c.ylabel(data.value_label, 5.2);
     if (with_res) {
       Range rr;
@@ -984,12 +998,17 @@ FigureFile write_phase_fold_figure(const PhaseFoldFigureData& data, const std::s
       const double m = std::max(std::abs(rr.lo), std::abs(rr.hi));
       rr = Range{-m, m}.padded(0.08);
       c.panel(vp[1], -0.5, 0.5, rr.lo, rr.hi);
-      c.axes(true, true);
+      c.axes(true, true, false, true, phase_tick);
       c.hline(0.0, -0.5, 0.5, kInk, 2, 1.2);
       for (const auto& s : p.residuals) draw_series(c, styles, s, fold(s.time_bjd, p.t_ref_bjd, p.period_days));
       if (col == 0) c.ylabel(data.residual_label, 5.2);
     }
-    c.xlabel("Orbital phase (0 = reference time)");
+    std::string phase_label = "Orbital phase (0 = reference time)";
+    if (c.fit_rel(phase_label, cell_w, false, 1.0) < 0.8) phase_label = "Orbital phase";
+    const double rel = c.fit_rel(phase_label, cell_w, false, 1.0);
+    c.set_text(rel);
+    c.xlabel(phase_label, 2.9 / rel);
+    c.set_text(1.0);
   }
   return c.finish();
 }
@@ -1121,7 +1140,7 @@ FigureFile write_corner_figure(const CornerFigureData& data, const std::string& 
   std::lock_guard<std::mutex> lock(plplot_mutex());
   Canvas c(path, options, fig);
   const double top = c.title(options.title);
-  const double text_rel = std::clamp(std::sqrt(4.0 / static_cast<double>(np)), 0.6, 1.0);
+  const double text_rel = std::clamp(std::sqrt(4.0 / static_cast<double>(np)), 0.75, 1.0);
   // Square cells when the page allows.
   const double left = 0.02 + 8.0 * c.cw() * text_rel, bottom = 6.0 * c.ch() * text_rel;
   const double avail_w = 1.0 - 1.5 * c.cw() - left, avail_h = top - 2.6 * c.ch() * text_rel - bottom;
@@ -1181,11 +1200,12 @@ FigureFile write_corner_figure(const CornerFigureData& data, const std::string& 
         c.vline(sx.q16, 0, yt, kInk, 2, 1.1);
         c.vline(sx.q84, 0, yt, kInk, 2, 1.1);
         if (std::isfinite(px.truth)) c.vline(px.truth, 0, yt, kVermillion, 1, 2.0);
-        c.set_text(0.85 * text_rel);
-        c.axes(x_numbers, false, false, false, nice_step(sx.hi - sx.lo, 3.0), 0);
-        c.set_text(0.72 * text_rel);
+        c.axes(x_numbers, false, false, false, nice_step(sx.hi - sx.lo, 3.0), 0, 0.85 * text_rel);
+        const std::string q = format_with_errors(sx.q50, sx.q50 - sx.q16, sx.q84 - sx.q50);
+        c.set_text(1.0);
+        c.set_text(c.fit_rel(q, cell_w + gap_w, false, 0.8 * text_rel));
         c.p().col0(kInk);
-        c.p().mtex("t", 0.6, 0.5, 0.5, esc(format_with_errors(sx.q50, sx.q50 - sx.q16, sx.q84 - sx.q50)).c_str());
+        c.p().mtex("t", 0.6, 0.5, 0.5, esc(q).c_str());
       } else {
         const auto& py = data.parameters[row];
         const Stat& sy = st[row];
@@ -1239,16 +1259,19 @@ FigureFile write_corner_figure(const CornerFigureData& data, const std::string& 
         }
         if (std::isfinite(px.truth)) c.vline(px.truth, sy.lo, sy.hi, kVermillion, 1, 1.6);
         if (std::isfinite(py.truth)) c.hline(py.truth, sx.lo, sx.hi, kVermillion, 1, 1.6);
-        c.set_text(0.85 * text_rel);
-        c.axes(x_numbers, col == 0, false, false, nice_step(sx.hi - sx.lo, 3.0), nice_step(sy.hi - sy.lo, 3.0));
+        c.axes(x_numbers, col == 0, false, false, nice_step(sx.hi - sx.lo, 3.0), nice_step(sy.hi - sy.lo, 3.0),
+               0.85 * text_rel);
         if (col == 0) {
-          c.set_text(0.9 * text_rel);
-          c.ylabel(py.label, 6.0);
+          c.set_text(1.0);
+          c.set_text(c.fit_rel(py.label, cell_h, true, 0.9 * text_rel));
+          c.ylabel(py.label, 6.0 * 0.9 * text_rel / c.fit_rel(py.label, cell_h, true, 0.9 * text_rel));
         }
       }
       if (x_numbers) {
-        c.set_text(0.9 * text_rel);
-        c.xlabel(px.label, 3.2);
+        c.set_text(1.0);
+        const double rel = c.fit_rel(px.label, cell_w + gap_w, false, 0.9 * text_rel);
+        c.set_text(rel);
+        c.xlabel(px.label, 3.2 * 0.9 * text_rel / rel);
       }
       c.set_text(1.0);
     }
@@ -1316,8 +1339,7 @@ FigureFile write_trace_figure(const TraceFigureData& data, const std::string& pa
       c.p().col0(kPale);
       c.p().fill(4, fx, fy);
     }
-    c.set_text(0.85 * text_rel);
-    c.axes(p + 1 == np, true);
+    c.axes(p + 1 == np, true, false, true, 0, 0, 0.85 * text_rel);
     for (std::size_t w = 0; w < nw; ++w) c.polyline(steps, lines[w], kWalkerColour[w % kWalkerColour.size()], 0.8);
     if (data.burn_in_step >= 0) {
       c.vline(std::min(data.burn_in_step, x_hi), yr.lo, yr.hi, kInk, 2, 1.4);
@@ -1327,8 +1349,7 @@ FigureFile write_trace_figure(const TraceFigureData& data, const std::string& pa
         c.p().ptex(std::min(data.burn_in_step, x_hi), yr.hi - 0.12 * (yr.hi - yr.lo), 1, 0, -0.1, " burn-in ends");
       }
     }
-    c.set_text(0.85 * text_rel);
-    c.caption(data.labels[p]);
+    c.caption(data.labels[p], 0.85 * text_rel);
     c.set_text(1.0);
   }
   c.xlabel("Step");
