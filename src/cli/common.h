@@ -26,6 +26,7 @@ struct Command {
 };
 Command register_simulate(CLI::App& app);
 Command register_fit(CLI::App& app);
+Command register_ephemeris(CLI::App& app);
 
 // Writes text to `path` atomically (temporary file + rename): never half-written.
 void write_file_atomic(const std::string& path, const std::string& content);

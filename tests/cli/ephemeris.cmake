@@ -1,0 +1,49 @@
+# apsides ephemeris: what users see (exit codes and messages).
+set(_eph_demo ${PROJECT_SOURCE_DIR}/datasets_synthetic/demo/transits.csv)
+set(_eph_wasp ${PROJECT_SOURCE_DIR}/../shared/data/real/wasp12b_transits_wong2022.txt)
+set(_eph_tmp ${CMAKE_CURRENT_BINARY_DIR}/tmp/cli_ephemeris)
+file(MAKE_DIRECTORY ${_eph_tmp})
+
+add_test(NAME cli_ephemeris_demo_predicts_ten_transits
+         COMMAND $<TARGET_FILE:apsides> ephemeris ${_eph_demo} --quiet)
+set_tests_properties(cli_ephemeris_demo_predicts_ten_transits PROPERTIES
+  PASS_REGULAR_EXPRESSION "Predicted transits \\(linear[^\n]*\n[^\n]*\n( +[0-9]+ +245[0-9]+\\.[0-9]+ [^\n]*\n){10}  UTC = BJD_TDB")
+
+add_test(NAME cli_ephemeris_full_precision_bjd
+         COMMAND $<TARGET_FILE:apsides> ephemeris ${_eph_demo} --next 2 --quiet)
+set_tests_properties(cli_ephemeris_full_precision_bjd PROPERTIES
+  PASS_REGULAR_EXPRESSION "T0    \\(epoch +0\\)  24594[0-9][0-9]\\.[0-9][0-9][0-9][0-9][0-9][0-9][0-9] \\+/-")
+
+add_test(NAME cli_ephemeris_date_range
+         COMMAND $<TARGET_FILE:apsides> ephemeris ${_eph_demo} --from 2460500 --to 2460520 --days)
+set_tests_properties(cli_ephemeris_date_range PROPERTIES
+  PASS_REGULAR_EXPRESSION "246050[0-9]\\.[0-9]+ +0\\.[0-9]+ +20[0-9][0-9]-[0-9][0-9]-[0-9][0-9] [0-9:]+\n.*246051")
+
+add_test(NAME cli_ephemeris_wasp12_notes_ignored_column_and_decay
+         COMMAND $<TARGET_FILE:apsides> ephemeris ${_eph_wasp} --no-ttv --next 1)
+set_tests_properties(cli_ephemeris_wasp12_notes_ignored_column_and_decay PROPERTIES
+  PASS_REGULAR_EXPRESSION "extra column\\(s\\) not used: O-C.*dP/dn  -1\\.0[0-9]+e-09.*period change favoured")
+
+add_test(NAME cli_ephemeris_json_written
+         COMMAND $<TARGET_FILE:apsides> ephemeris ${_eph_demo} --quiet --json ${_eph_tmp}/demo.json)
+
+add_test(NAME cli_ephemeris_missing_file_exits_2
+         COMMAND $<TARGET_FILE:apsides> ephemeris ${_eph_tmp}/no_such_file.csv)
+set_tests_properties(cli_ephemeris_missing_file_exits_2 PROPERTIES WILL_FAIL TRUE)
+add_test(NAME cli_ephemeris_missing_file_message
+         COMMAND $<TARGET_FILE:apsides> ephemeris ${_eph_tmp}/no_such_file.csv)
+set_tests_properties(cli_ephemeris_missing_file_message PROPERTIES
+  PASS_REGULAR_EXPRESSION "no_such_file.csv")
+
+add_test(NAME cli_ephemeris_to_needs_from
+         COMMAND $<TARGET_FILE:apsides> ephemeris ${_eph_demo} --to 2460600)
+set_tests_properties(cli_ephemeris_to_needs_from PROPERTIES WILL_FAIL TRUE)
+
+add_test(NAME cli_ephemeris_unknown_planet
+         COMMAND $<TARGET_FILE:apsides> ephemeris ${_eph_demo} --planet z)
+set_tests_properties(cli_ephemeris_unknown_planet PROPERTIES
+  PASS_REGULAR_EXPRESSION "--planet z: .* has no transits of that planet")
+
+add_test(NAME cli_ephemeris_bad_outlier_sigma
+         COMMAND $<TARGET_FILE:apsides> ephemeris ${_eph_demo} --outlier-sigma -3)
+set_tests_properties(cli_ephemeris_bad_outlier_sigma PROPERTIES WILL_FAIL TRUE)
