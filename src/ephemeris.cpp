@@ -630,7 +630,8 @@ std::string EphemerisResult::FullReport(bool oc_in_minutes) const {
     s += fmt::format("  near {}:{} resonance (Delta = {:+.4f}): expected super-period {:.2f} d = {:.2f} epochs "
                      "(Lithwick, Xie & Wu 2012){}\n",
                      rs.j, rs.j - 1, rs.delta, rs.super_period_days, rs.super_period_epochs,
-                     ttv.fitted ? fmt::format("; found {:.2f} +/- {:.2f} d", ttv.period_days.value, ttv.period_days.err)
+                     ttv.fitted ? fmt::format("; best O-C sinusoid {:.2f} +/- {:.2f} d{}", ttv.period_days.value,
+                                             ttv.period_days.err, ttv.fap < 0.01 ? "" : " (not significant)")
                                 : "");
   }
   if (!predictions.empty()) {
