@@ -26,6 +26,7 @@ struct Command {
 };
 Command register_simulate(CLI::App& app);
 Command register_summarize(CLI::App& app);
+Command register_sample(CLI::App& app);
 Command register_fit(CLI::App& app);
 Command register_ephemeris(CLI::App& app);
 

@@ -21,6 +21,7 @@ int main(int argc, char** argv) {
   std::vector<apsides::cli::Command> commands;
   commands.push_back(apsides::cli::register_simulate(app));
   commands.push_back(apsides::cli::register_summarize(app));
+  commands.push_back(apsides::cli::register_sample(app));
   commands.push_back(apsides::cli::register_fit(app));
   commands.push_back(apsides::cli::register_ephemeris(app));
 

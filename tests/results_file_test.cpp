@@ -1,0 +1,211 @@
+#include "apsides/results_file.h"
+
+#include <doctest/doctest.h>
+
+#include <cmath>
+
+#include "apsides/error.h"
+#include "apsides/posterior.h"
+#include "test_support.h"
+
+using apsides::ResultsFile;
+
+TEST_SUITE("results_file") {
+  TEST_CASE("results_file: chains, state, data and attributes round-trip through h5py") {
+    const std::string dir = apsides::test::temp_dir("results_file_roundtrip");
+    const std::string path = dir + "/run.h5";
+    const int walkers = 4;
+    const std::size_t dim = 3;
+    {
+      ResultsFile f(path, ResultsFile::Mode::kCreate);
+      apsides::VelocityData d;
+      d.reference_epoch_bjd = 2459000.0;
+      d.time_days = {-1.5, 0.25, 3.0};
+      d.velocity_m_s = {1.0, -2.0, 3.5};
+      d.uncertainty_m_s = {0.5, 0.6, 0.7};
+      d.instrument = {0, 1, 0};
+      d.instrument_names = {"north", "south"};
+      f.write_velocity_data(d);
+      f.write_project_text("[[velocities]]\nfile = \"rv.csv\"\n");
+      f.write_parameters({"a", "b", "c"}, {"d", "m/s", ""}, {"uniform(0, 1)", "normal(0, 1)", "uniform(-1, 1)"});
+      f.create_chains(walkers, dim, 42, "test");
+      std::vector<std::vector<double>> pos, lp;
+      for (int s = 0; s < 5; ++s) {
+        std::vector<double> row(walkers * dim), l(walkers);
+        for (std::size_t i = 0; i < row.size(); ++i) row[i] = 100.0 * s + static_cast<double>(i) + 0.125;
+        for (int w = 0; w < walkers; ++w) l[static_cast<std::size_t>(w)] = -s - 0.5 * w;
+        pos.push_back(row);
+        lp.push_back(l);
+      }
+      f.append_chain_rows(pos, lp);
+      apsides::SamplerState st;
+      st.step = 5;
+      st.positions = pos.back();
+      st.log_prob = lp.back();
+      st.accepted = {1, 2, 3, 4};
+      f.write_checkpoint(st);
+      // Rows appended without a checkpoint (as if killed before the next one) are dropped on resume.
+      f.append_chain_rows({pos[0]}, {lp[0]});
+      f.create_group("/periodograms/rv");
+      f.write_vector("/periodograms/rv/power", std::vector<double>{0.1, 0.9}, "", "GLS power");
+    }
+    // Outside reader: h5py (Debian python3-h5py) through /usr/bin/python3.
+    const auto r = apsides::test::run_python(
+        "import h5py, numpy as np\n"
+        "f = h5py.File('" + path + "', 'r')\n"
+        "p = f['chains/positions']\n"
+        "print(p.shape, p.chunks is not None, p.maxshape[0] is None)\n"
+        "print(p[4, 3, 2], f['chains/log_prob'][2, 1])\n"
+        "print(f['data/time_d'].attrs['unit'], f['data'].attrs['reference_epoch_bjd'])\n"
+        "print([s.decode() for s in f['data/instrument_names'][()]], list(f['data/instrument'][()]))\n"
+        "print(f['project/text'][()].decode().splitlines()[0])\n"
+        "print(f['chains'].attrs['steps'], list(f['chains/state/accepted'][()]))\n"
+        "print(f['periodograms/rv/power'].attrs['description'])\n");
+    REQUIRE(r.status == 0);
+    CHECK(r.output ==
+          "(5, 4, 3) True True\n"
+          "411.125 -2.5\n"
+          "d 2459000.0\n"
+          "['north', 'south'] [0, 1, 0]\n"
+          "[[velocities]]\n"
+          "5 [1, 2, 3, 4]\n"
+          "GLS power\n");
+    {
+      ResultsFile f(path, ResultsFile::Mode::kReadWrite);
+      CHECK(f.shape("/chains/positions")[0] == 6);
+      const apsides::SamplerState st = f.read_checkpoint();
+      CHECK(st.step == 5);
+      CHECK(f.shape("/chains/positions")[0] == 5);
+      CHECK(st.accepted == std::vector<long>{1, 2, 3, 4});
+      CHECK(f.read_chain_row(2) == std::vector<double>([] {
+              std::vector<double> v(12);
+              for (std::size_t i = 0; i < 12; ++i) v[i] = 100.0 + static_cast<double>(i) + 0.125;
+              return v;
+            }()));
+      const auto every2 = f.read_chain_rows(1, 5, 2);
+      CHECK(every2.size() == 3 * 12);
+      CHECK(every2[12] == 200.125);
+      CHECK(f.read_strings("/parameters/units")[1] == "m/s");
+    }
+  }
+
+  TEST_CASE("results_file: a missing or non-HDF5 file is an input error naming it") {
+    const std::string dir = apsides::test::temp_dir("results_file_bad");
+    CHECK_THROWS_WITH_AS(ResultsFile(dir + "/none.h5", ResultsFile::Mode::kReadOnly), (dir + "/none.h5: no such file").c_str(),
+                         apsides::InputError);
+    const std::string text = apsides::test::write_text(dir, "x.h5", "not hdf5");
+    CHECK_THROWS_WITH_AS(ResultsFile(text, ResultsFile::Mode::kReadOnly), (text + ": not an HDF5 file").c_str(),
+                         apsides::InputError);
+  }
+
+  TEST_CASE("results_file: quantiles and rounding follow the significant digits of the uncertainty") {
+    // numpy.percentile([1..101], [15.8655, 50, 84.1345]) (linear interpolation, numpy default).
+    std::vector<double> v;
+    for (int i = 1; i <= 101; ++i) v.push_back(i);
+    const auto q = apsides::quantiles(v);
+    CHECK(q.median == doctest::Approx(51.0));
+    CHECK(q.minus == doctest::Approx(51.0 - 16.86552539314571));
+    CHECK(q.plus == doctest::Approx(85.13447460685429 - 51.0));
+    CHECK(apsides::format_with_uncertainty({12.3456, 0.0123, 0.0147}) == "12.346 +0.015 -0.012");
+    CHECK(apsides::format_with_uncertainty({118.61234, 0.52, 0.61}) == "118.6 +0.6 -0.5");
+    CHECK(apsides::format_with_uncertainty({2459452.123456, 1.9, 2.3}) == "2459452.1 +2.3 -1.9");
+    CHECK(apsides::format_with_uncertainty({1234.0, 56.0, 71.0}) == "1230 +70 -60");
+  }
+
+  TEST_CASE("results_file: derived m sin i, a and the stellar-mass draws agree with orbit.h and the mass spread") {
+    apsides::ModelLayout layout;
+    layout.n_planets = 1;
+    layout.n_instruments = 1;
+    const auto p = apsides::Planet::from_elements(4.231, 56.0, 0.0, 0.0, 0.0);
+    std::vector<double> theta(layout.n_params(), 0.0);
+    apsides::put_planet(theta, layout, 0, p);
+    std::vector<double> samples;
+    for (int i = 0; i < 20000; ++i) samples.insert(samples.end(), theta.begin(), theta.end());
+    apsides::DerivedOptions o;
+    o.star_mass_msun = 1.0;
+    o.star_mass_err_msun = 0.05;
+    const auto d = apsides::derive_posterior(samples, layout, o);
+    const auto m = apsides::quantiles(d.values[d.index("star.mass_msun")]);
+    CHECK(m.median == doctest::Approx(1.0).epsilon(0.002));
+    CHECK(0.5 * (m.minus + m.plus) == doctest::Approx(0.05).epsilon(0.03));
+    // 51 Peg b, Marcy et al. 1997 (CHECKS.md section 2): 0.45 M_J at M = 1 M_sun.
+    const auto msini = apsides::quantiles(d.values[d.index("b.msini_mjup")]);
+    CHECK(msini.median == doctest::Approx(0.45).epsilon(0.012));
+    // m sin i ~ M^(2/3): a 5 % mass spread gives ~3.3 %.
+    CHECK(0.5 * (msini.minus + msini.plus) / msini.median == doctest::Approx(0.05 * 2.0 / 3.0).epsilon(0.1));
+  }
+}
+
+namespace {
+// A project on the bundled demo system (two planets, three instruments), data files by
+// absolute path so the project can live in a temporary directory.
+std::string demo_project(const std::string& dir, long checkpoint_steps) {
+  const std::string demo = apsides::test::source_dir() + "/datasets_synthetic/demo/";
+  std::string text = "[star]\nmass_msun = 0.86\nmass_err_msun = 0.03\n";
+  for (const char* inst : {"Kestrel", "Tern", "Petrel"}) {
+    text += std::string("[[velocities]]\nfile = \"") + demo + "velocities_" + inst + ".csv\"\ninstrument = \"" + inst + "\"\n";
+    if (std::string(inst) == "Petrel") text += "velocity_unit = \"km/s\"\n";
+  }
+  text += "[model]\nplanets = 2\n[sampler]\nwalkers = 32\nseed = 7\ness_target = 1e9\ncheckpoint_steps = " +
+          std::to_string(checkpoint_steps) + "\n";
+  return apsides::test::write_text(dir, "project.toml", text);
+}
+}  // namespace
+
+TEST_SUITE("results_file") {
+  TEST_CASE("results_file: a kill -9 of apsides sample, then --resume, ends bitwise equal to an uninterrupted run") {
+    const std::string dir = apsides::test::temp_dir("results_file_kill");
+    const std::string project = demo_project(dir, 500);
+    const std::string bin = apsides::test::apsides_binary();
+    const std::string steps = "12000";
+    const auto full = apsides::test::run_command(bin + " sample " + project + " --out " + dir + "/full.h5 --quiet --max-steps " + steps);
+    REQUIRE_MESSAGE(full.status == 0, full.output);
+    // Start the same run, kill -9 it once the file has grown past a few checkpoints.
+    const std::string killer =
+        "cd " + dir + " && (" + bin + " sample " + project + " --out killed.h5 --quiet --max-steps " + steps +
+        " > /dev/null 2>&1 & pid=$!; "
+        "while kill -0 $pid 2>/dev/null && [ $(stat -c%s killed.h5 2>/dev/null || echo 0) -lt 8000000 ]; do sleep 0.02; done; "
+        "kill -9 $pid 2>/dev/null && echo killed; wait $pid 2>/dev/null; true)";
+    const auto k = apsides::test::run_command(killer);
+    REQUIRE_MESSAGE(k.output.find("killed") != std::string::npos, "the run finished before it could be killed");
+    // The killed file opens in h5py without apsides.
+    const auto probe = apsides::test::run_python("import h5py\nf = h5py.File('" + dir +
+                                                 "/killed.h5', 'r')\nprint(f['chains'].attrs['steps'] < " + steps + ")\n");
+    CHECK(probe.output == "True\n");
+    const auto resumed = apsides::test::run_command(bin + " sample " + project + " --out " + dir +
+                                                    "/killed.h5 --resume --quiet --max-steps " + steps);
+    REQUIRE_MESSAGE(resumed.status == 0, resumed.output);
+    // Compared by h5py: every stored number identical.
+    const auto cmp = apsides::test::run_python(
+        "import h5py, numpy as np\n"
+        "a = h5py.File('" + dir + "/full.h5', 'r'); b = h5py.File('" + dir + "/killed.h5', 'r')\n"
+        "print(a['chains/positions'].shape == b['chains/positions'].shape,\n"
+        "      np.array_equal(a['chains/positions'][()], b['chains/positions'][()]),\n"
+        "      np.array_equal(a['chains/log_prob'][()], b['chains/log_prob'][()]),\n"
+        "      np.array_equal(a['derived/b.msini_mjup'][()], b['derived/b.msini_mjup'][()]))\n");
+    CHECK(cmp.output == "True True True True\n");
+
+    // summarize: JSON contract keys, and the demo's truth inside the 95 % intervals
+    // (median +- 2 x the 16/84 half-widths; truth from datasets_synthetic/demo/truth.json).
+    const auto sum = apsides::test::run_command(bin + " summarize " + dir + "/full.h5 --json " + dir + "/summary.json");
+    REQUIRE_MESSAGE(sum.status == 0, sum.output);
+    CHECK(sum.output.find("MINIMUM mass") != std::string::npos);
+    const auto check = apsides::test::run_python(
+        "import json\n"
+        "s = json.load(open('" + dir + "/summary.json'))\n"
+        "t = json.load(open('" + apsides::test::source_dir() + "/datasets_synthetic/demo/truth.json'))\n"
+        "assert set(['data', 'planets', 'instruments', 'sampler']) <= set(s)\n"
+        "assert set(['walkers', 'steps', 'rhat_max', 'ess_min', 'tau_max']) <= set(s['sampler'])\n"
+        "bad = []\n"
+        "for sp, tp in zip(s['planets'], t['planets']):\n"
+        "    for k in ['period_d', 'K_ms', 'ecc', 'msini_mjup', 'a_au']:\n"
+        "        q = sp[k]; assert set(q) == {'median', 'minus', 'plus'}\n"
+        "        lo, hi = q['median'] - 2 * q['minus'], q['median'] + 2 * q['plus']\n"
+        "        if not (lo <= tp[k] <= hi) and not (k == 'ecc' and tp[k] < hi): bad.append((sp['label'], k, tp[k], lo, hi))\n"
+        "for si, ti in zip(s['instruments'], t['instruments']):\n"
+        "    q = si['offset_ms']\n"
+        "    if not (q['median'] - 2 * q['minus'] <= ti['offset_ms'] <= q['median'] + 2 * q['plus']): bad.append((si['name'], ti['offset_ms'], q))\n"
+        "print(bad)\n");
+    CHECK(check.output == "[]\n");
+  }
+}
