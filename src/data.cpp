@@ -8,9 +8,13 @@
 #include <numeric>
 
 #include "apsides/error.h"
+#include "apsides/keplerian_model.h"
 #include "text_table.h"
 
 namespace apsides {
+namespace {
+constexpr double kSpeedOfLightMS = 299792458.0;  // exact, SI definition of the metre
+}  // namespace
 using detail::parse_long_double;
 using detail::parse_number;
 
@@ -56,6 +60,7 @@ VelocityFile read_velocity_file(const std::string& path, const VelocityFileOptio
   const double scale = options.unit == VelocityUnit::kKilometersPerSecond ? 1000.0 : 1.0;
   std::size_t expected = 0;
   int expected_line = 0;
+  int label_column = -1;
   for (const auto& row : table.rows) {
     const std::size_t nc = row.fields.size();
     if (nc < 3) {
@@ -71,33 +76,63 @@ VelocityFile read_velocity_file(const std::string& path, const VelocityFileOptio
         throw InputError(fmt::format("{}:{}: has {} columns but the header names {}", path,
                                      row.line, nc, table.header.size()));
       }
+      // Columns after the third: the first text one is the instrument label, numeric ones
+      // (activity indicators, ...) are skipped.
+      for (std::size_t c = 3; c < nc; ++c) {
+        if (!detail::looks_numeric(row.fields[c])) {
+          if (label_column >= 0) {
+            throw InputError(fmt::format(
+                "{}:{}: columns {} and {} are both text; a velocity file has one instrument "
+                "label column",
+                path, row.line, label_column + 1, c + 1));
+          }
+          label_column = static_cast<int>(c);
+        } else {
+          out.ignored_columns.push_back(table.header.empty() ? fmt::format("column {}", c + 1)
+                                                             : table.header[c]);
+        }
+      }
     } else if (nc != expected) {
       throw InputError(fmt::format("{}:{}: has {} columns; line {} has {}", path, row.line, nc,
                                    expected_line, expected));
     }
     long double t = parse_long_double(row.fields[0], path, row.line, "time");
+    if (std::fabs(t) >= 1e7L) {
+      throw InputError(fmt::format("{}:{}: time is {}; it must be a BJD_TDB in days (|t| < 1e7)",
+                                   path, row.line, row.fields[0]));
+    }
     double v = parse_number(row.fields[1], path, row.line, "velocity");
     double s = parse_number(row.fields[2], path, row.line, "uncertainty");
+    if (std::fabs(v * scale) >= kSpeedOfLightMS) {
+      throw InputError(fmt::format("{}:{}: velocity is {} {}; it must be below the speed of light",
+                                   path, row.line, row.fields[1], to_string(options.unit)));
+    }
     if (!(s > 0.0)) {
       throw InputError(fmt::format("{}:{}: uncertainty is {}; it must be > 0", path, row.line,
                                    row.fields[2]));
     }
+    if (s * scale >= kSpeedOfLightMS) {
+      throw InputError(fmt::format("{}:{}: uncertainty is {} {}; it must be below the speed of light",
+                                   path, row.line, row.fields[2], to_string(options.unit)));
+    }
     std::string label = options.instrument;
-    if (nc >= 4) {
-      const std::string& f = row.fields[3];
+    if (label_column >= 0) {
+      const std::string& f = row.fields[static_cast<std::size_t>(label_column)];
       if (detail::looks_numeric(f)) {
         throw InputError(fmt::format(
-            "{}:{}: column 4 is '{}'; it must be an instrument label (text), "
-            "or the file must have three columns",
-            path, row.line, f));
+            "{}:{}: column {} is '{}'; it must be an instrument label (text) as on line {}",
+            path, row.line, label_column + 1, f, expected_line));
       }
-      if (label.empty()) label = f;
-    }
-    if (nc > 4) {
-      throw InputError(fmt::format(
-          "{}:{}: has {} columns; a velocity file has time, velocity, uncertainty and an "
-          "optional instrument label",
-          path, row.line, nc));
+      if (label.empty()) {
+        label = f;
+      } else if (f != label) {
+        throw InputError(fmt::format(
+            "{}:{}: instrument column says '{}' but the file is given instrument '{}'; drop the "
+            "per-file instrument or the column",
+            path, row.line, f, label));
+      }
+    } else {
+      for (std::size_t c = 3; c < nc; ++c) parse_number(row.fields[c], path, row.line, fmt::format("column {}", c + 1));
     }
     if (label.empty()) label = detail::file_stem(path);
     out.time_bjd.push_back(t);
@@ -106,7 +141,54 @@ VelocityFile read_velocity_file(const std::string& path, const VelocityFileOptio
     out.instrument.push_back(label);
     out.line.push_back(row.line);
   }
+  if (!out.ignored_columns.empty()) {
+    std::string list;
+    for (const auto& c : out.ignored_columns) list += (list.empty() ? "" : ", ") + c;
+    out.warnings.push_back(fmt::format("{}: skipped extra numeric column(s): {}", path, list));
+  }
+  // Units: HARPS-like errors are ~1 m/s; a typical stated error far from that range in
+  // the declared unit usually means the unit is wrong. A warning, not an error.
+  std::vector<double> err(out.uncertainty_m_s);
+  std::nth_element(err.begin(), err.begin() + static_cast<std::ptrdiff_t>(err.size() / 2), err.end());
+  const double median_err = err[err.size() / 2];
+  if (options.unit == VelocityUnit::kKilometersPerSecond && median_err > 500.0) {
+    out.warnings.push_back(fmt::format(
+        "{}: declared km/s, but the median uncertainty is {:g} km/s; these look like m/s "
+        "(check velocity_unit)",
+        path, median_err / 1000.0));
+  } else if (options.unit == VelocityUnit::kMetersPerSecond && median_err < 0.05) {
+    out.warnings.push_back(fmt::format(
+        "{}: read as m/s, but the median uncertainty is {:g} m/s; these look like km/s "
+        "(declare velocity_unit = \"km/s\" or --velocity-unit km/s)",
+        path, median_err));
+  }
   return out;
+}
+
+void check_enough_points(const VelocityData& data, const ModelLayout& layout) {
+  if (static_cast<std::size_t>(layout.n_instruments) != data.n_instruments()) {
+    throw InputError(fmt::format("model has {} instrument(s) but the data have {}",
+                                 layout.n_instruments, data.n_instruments()));
+  }
+  const std::size_t k = layout.n_params();
+  if (data.size() <= k) {
+    throw InputError(fmt::format(
+        "{} velocities are too few for a model with {} planet(s), {} instrument(s){}{}: it has "
+        "{} free parameters and needs more than {} points",
+        data.size(), layout.n_planets, layout.n_instruments, layout.fit_jitter ? " with jitter" : "",
+        layout.trend == Trend::kNone ? "" : fmt::format(" and a {} trend", to_string(layout.trend)), k, k));
+  }
+  if (layout.fit_jitter) {
+    for (std::size_t i = 0; i < data.n_instruments(); ++i) {
+      const std::size_t n = data.count(static_cast<int>(i));
+      if (n < 2) {
+        throw InputError(fmt::format(
+            "instrument '{}' has {} velocity; an instrument with its own offset and jitter needs "
+            "at least 2 points (or drop jitter fitting)",
+            data.instrument_names[i], n));
+      }
+    }
+  }
 }
 
 namespace {
@@ -162,6 +244,14 @@ VelocityData combine_velocities(const std::vector<VelocityFile>& files) {
     }
   }
   std::stable_sort(rows.begin(), rows.end(), [](const Row& a, const Row& b) { return a.t < b.t; });
+  if (rows.back().t - rows.front().t > 1e5L) {
+    throw InputError(fmt::format(
+        "{}: time {} and {}: time {} are {:.0f} days apart; are some times full BJD and others "
+        "reduced (BJD - 2400000 or similar)? Give every file the same kind",
+        rows.front().origin, static_cast<double>(rows.front().t), rows.back().origin,
+        static_cast<double>(rows.back().t), static_cast<double>(rows.back().t - rows.front().t)));
+  }
+  for (const auto& f : files) data.warnings.insert(data.warnings.end(), f.warnings.begin(), f.warnings.end());
   for (const auto& r : rows) {
     data.time_days.push_back(static_cast<double>(r.t - ref));
     data.velocity_m_s.push_back(r.v);
@@ -240,10 +330,21 @@ TransitData read_transit_file(const std::string& path, const TransitFileOptions&
                                    path, row.line, row.fields[0]));
     }
     long double t = parse_long_double(row.fields[1], path, row.line, "mid-transit time");
+    if (std::fabs(t) >= 1e7L) {
+      throw InputError(fmt::format(
+          "{}:{}: mid-transit time is {}; it must be a BJD_TDB in days (|t| < 1e7)", path,
+          row.line, row.fields[1]));
+    }
     double s = parse_number(row.fields[2], path, row.line, "uncertainty");
     if (!(s > 0.0)) {
       throw InputError(fmt::format("{}:{}: uncertainty is {}; it must be > 0 (days)", path,
                                    row.line, row.fields[2]));
+    }
+    if (!(s < 1.0)) {
+      throw InputError(fmt::format(
+          "{}:{}: uncertainty is {} days; it must be below 1 day (transit-time errors are in "
+          "days, not minutes)",
+          path, row.line, row.fields[2]));
     }
     for (std::size_t c = 3; c < nc; ++c) {
       if (static_cast<int>(c) == label_column) continue;
@@ -257,15 +358,27 @@ TransitData read_transit_file(const std::string& path, const TransitFileOptions&
     out.planet.push_back(label);
     out.origin.push_back(fmt::format("{}:{}", path, row.line));
   }
-  // Repeated epochs (per planet) are input errors.
+  // A repeated epoch (per planet) is either a second measurement of the same transit
+  // (kept: times agree within 5 combined sigma) or a mistake (an error).
   std::map<std::pair<std::string, long long>, std::size_t> seen;
   for (std::size_t i = 0; i < out.epoch.size(); ++i) {
     auto key = std::make_pair(out.planet[i], out.epoch[i]);
     auto [it, inserted] = seen.emplace(key, i);
-    if (!inserted) {
-      throw InputError(fmt::format("{}: epoch {} repeats {}{}", out.origin[i], out.epoch[i],
-                                   out.origin[it->second],
-                                   out.planet[i].empty() ? "" : fmt::format(" for planet '{}'", out.planet[i])));
+    if (inserted) continue;
+    const std::size_t j = it->second;
+    const std::string for_planet =
+        out.planet[i].empty() ? "" : fmt::format(" for planet '{}'", out.planet[i]);
+    if (times[i] == times[j]) {
+      throw InputError(fmt::format("{}: epoch {} repeats {}{} with the same time; a duplicated row",
+                                   out.origin[i], out.epoch[i], out.origin[j], for_planet));
+    }
+    const double diff = static_cast<double>(times[i] - times[j]);
+    const double sigma = std::hypot(out.uncertainty_days[i], out.uncertainty_days[j]);
+    if (std::fabs(diff) > 5.0 * sigma) {
+      throw InputError(fmt::format(
+          "{}: epoch {} repeats {}{} but the times differ by {:.6f} d ({:.1f} sigma); two "
+          "measurements of one transit must agree within 5 sigma (is an epoch number wrong?)",
+          out.origin[i], out.epoch[i], out.origin[j], for_planet, diff, std::fabs(diff) / sigma));
     }
   }
   long double ref = std::isnan(options.reference_epoch_bjd)

@@ -11,6 +11,7 @@
 #include <toml++/toml.h>
 
 #include "apsides/error.h"
+#include "text_table.h"
 
 namespace apsides {
 namespace fs = std::filesystem;
@@ -26,34 +27,13 @@ struct Ctx {
   }
 };
 
-std::size_t edit_distance(const std::string& a, const std::string& b) {
-  std::vector<std::size_t> prev(b.size() + 1), cur(b.size() + 1);
-  for (std::size_t j = 0; j <= b.size(); ++j) prev[j] = j;
-  for (std::size_t i = 1; i <= a.size(); ++i) {
-    cur[0] = i;
-    for (std::size_t j = 1; j <= b.size(); ++j) {
-      cur[j] = std::min({prev[j] + 1, cur[j - 1] + 1, prev[j - 1] + (a[i - 1] == b[j - 1] ? 0 : 1)});
-    }
-    std::swap(prev, cur);
-  }
-  return prev[b.size()];
-}
-
 void check_keys(const Ctx& ctx, const toml::table& t, const std::string& table_name,
                 const std::set<std::string>& allowed) {
   for (const auto& [k, v] : t) {
     const std::string key(k.str());
     if (allowed.count(key)) continue;
     const std::string name = table_name.empty() ? key : table_name + "." + key;
-    std::string best;
-    std::size_t best_d = 3;
-    for (const auto& a : allowed) {
-      const std::size_t d = edit_distance(key, a);
-      if (d < best_d) {
-        best_d = d;
-        best = a;
-      }
-    }
+    const std::string best = detail::suggest_key(key, {allowed.begin(), allowed.end()});
     std::string list;
     for (const auto& a : allowed) list += (list.empty() ? "" : ", ") + a;
     const int line = k.source().begin.line > 0 ? static_cast<int>(k.source().begin.line)
@@ -257,15 +237,22 @@ Project parse_project(const std::string& text, const std::string& path, const st
       pr.star.radius_rsun = r;
     }
     pr.star.radius_err_rsun = get_number(ctx, *t, "star", "radius_err_rsun", 0.0);
+    if (pr.star.radius_err_rsun < 0) throw InputError(fmt::format("{} is {}; it must be >= 0", ctx.where(*t->get("radius_err_rsun"), "star.radius_err_rsun"), pr.star.radius_err_rsun));
+    if (pr.star.radius_rsun && pr.star.radius_err_rsun >= *pr.star.radius_rsun) throw InputError(fmt::format("{} is {}; it must be below star.radius_rsun = {}", ctx.where(*t->get("radius_err_rsun"), "star.radius_err_rsun"), pr.star.radius_err_rsun, *pr.star.radius_rsun));
+    if (!has && pr.star.radius_err_rsun > 0) throw InputError(fmt::format("{} is given without star.radius_rsun", ctx.where(*t->get("radius_err_rsun"), "star.radius_err_rsun")));
   }
 
   for (const toml::table* t : get_array_of_tables(ctx, root, "velocities")) {
     check_keys(ctx, *t, "velocities", {"file", "instrument", "velocity_unit"});
     VelocitySource s;
     const std::string f = get_string(ctx, *t, "velocities", "file", "");
-    if (f.empty()) throw InputError(fmt::format("{}: [[velocities]] block at line {} needs a 'file' key", path, t->source().begin.line));
+    if (!t->get("file")) throw InputError(fmt::format("{}:{}: [[velocities]] block needs a 'file' key", path, t->source().begin.line));
+    if (f.empty()) throw InputError(fmt::format("{}: is empty; it must name a velocity file", ctx.where(*t->get("file"), "velocities.file")));
     s.file = resolve(base_dir, f);
+    s.origin = fmt::format("{}:{}", path, t->get("file")->source().begin.line);
     s.options.instrument = get_string(ctx, *t, "velocities", "instrument", "");
+    if (const toml::node* n = t->get("instrument"); n && s.options.instrument.empty())
+      throw InputError(fmt::format("{} is empty; give a label or leave the key out", ctx.where(*n, "velocities.instrument")));
     if (const toml::node* n = t->get("velocity_unit"))
       s.options.unit = parse_velocity_unit(get_string(ctx, *t, "velocities", "velocity_unit", ""), ctx.where(*n, "velocities.velocity_unit"));
     pr.velocities.push_back(s);
@@ -278,8 +265,10 @@ Project parse_project(const std::string& text, const std::string& path, const st
     check_keys(ctx, *t, "transits", {"file", "planet", "fit_jitter"});
     TransitSource s;
     const std::string f = get_string(ctx, *t, "transits", "file", "");
-    if (f.empty()) throw InputError(fmt::format("{}: [[transits]] block at line {} needs a 'file' key", path, t->source().begin.line));
+    if (!t->get("file")) throw InputError(fmt::format("{}:{}: [[transits]] block needs a 'file' key", path, t->source().begin.line));
+    if (f.empty()) throw InputError(fmt::format("{}: is empty; it must name a transit-time file", ctx.where(*t->get("file"), "transits.file")));
     s.file = resolve(base_dir, f);
+    s.origin = fmt::format("{}:{}", path, t->get("file")->source().begin.line);
     s.planet = get_string(ctx, *t, "transits", "planet", "b");
     if (s.planet.size() != 1 || s.planet[0] < 'b' || s.planet[0] > 'z')
       throw InputError(fmt::format("{} is '{}'; planets are labelled b, c, d, ... by increasing period", ctx.where(*t->get("planet"), "transits.planet"), s.planet));
@@ -331,7 +320,11 @@ Project parse_project(const std::string& text, const std::string& path, const st
   }
 
   if (const toml::table* t = get_table(ctx, root, "priors")) {
-    for (const auto& [k, v] : *t) pr.priors.push_back(parse_prior_entry(ctx, std::string(k.str()), v));
+    for (const auto& [k, v] : *t) {
+      pr.priors.push_back(parse_prior_entry(ctx, std::string(k.str()), v));
+      const int line = k.source().begin.line > 0 ? static_cast<int>(k.source().begin.line) : static_cast<int>(v.source().begin.line);
+      pr.priors.back().origin = fmt::format("{}:{}", path, line);
+    }
   }
 
   if (const toml::table* t = get_table(ctx, root, "sampler")) {
@@ -385,16 +378,39 @@ VelocityData Project::load_velocities() const {
   std::vector<std::string> paths;
   std::vector<VelocityFileOptions> opts;
   for (const auto& v : velocities) {
+    std::error_code ec;
+    if (!fs::exists(v.file, ec)) {
+      throw InputError(fmt::format("{}: no such file (named by velocities.file at {})", v.file,
+                                   v.origin.empty() ? path : v.origin));
+    }
     paths.push_back(v.file);
     opts.push_back(v.options);
   }
-  return apsides::load_velocities(paths, opts);
+  VelocityData data = apsides::load_velocities(paths, opts);
+  for (const auto& p : priors) {
+    const std::size_t dot = p.parameter.rfind('.');
+    if (dot == std::string::npos) continue;
+    const std::string owner = p.parameter.substr(0, dot), what = p.parameter.substr(dot + 1);
+    if (what != "offset_ms" && what != "jitter_ms") continue;
+    if (std::find(data.instrument_names.begin(), data.instrument_names.end(), owner) != data.instrument_names.end())
+      continue;
+    std::string list;
+    for (const auto& n : data.instrument_names) list += (list.empty() ? "'" : ", '") + n + "'";
+    throw InputError(fmt::format("{}: priors.{} names instrument '{}', which is not in the data (instruments: {})",
+                                 p.origin.empty() ? path : p.origin, p.parameter, owner, list));
+  }
+  return data;
 }
 
 TransitData Project::load_transits() const {
   TransitData all;
   std::vector<TransitData> parts;
   for (const auto& s : transits) {
+    std::error_code ec;
+    if (!fs::exists(s.file, ec)) {
+      throw InputError(fmt::format("{}: no such file (named by transits.file at {})", s.file,
+                                   s.origin.empty() ? path : s.origin));
+    }
     TransitFileOptions o;
     o.planet = s.planet;
     parts.push_back(read_transit_file(s.file, o));

@@ -4,6 +4,7 @@
 
 #include <algorithm>
 #include <cmath>
+#include <filesystem>
 #include <fstream>
 #include <nlohmann/json.hpp>
 #include <random>
@@ -14,6 +15,7 @@
 #include "apsides/constants.h"
 #include "apsides/error.h"
 #include "apsides/orbit.h"
+#include "text_table.h"
 
 namespace apsides {
 namespace {
@@ -25,10 +27,18 @@ std::string where(const std::string& path, const toml::node& n, const std::strin
 void allow(const std::string& path, const toml::table& t, const std::string& name,
            const std::set<std::string>& keys) {
   for (const auto& [k, v] : t) {
-    if (!keys.count(std::string(k.str()))) {
-      throw InputError(fmt::format("{}:{}: unknown key '{}{}'", path, v.source().begin.line,
-                                   name.empty() ? "" : name + ".", std::string(k.str())));
+    const std::string key(k.str());
+    if (keys.count(key)) continue;
+    const int line = k.source().begin.line > 0 ? static_cast<int>(k.source().begin.line)
+                                               : static_cast<int>(v.source().begin.line);
+    const std::string full = (name.empty() ? "" : name + ".") + key;
+    const std::string best = detail::suggest_key(key, {keys.begin(), keys.end()});
+    if (!best.empty()) {
+      throw InputError(fmt::format("{}:{}: unknown key '{}'; did you mean '{}'?", path, line, full, best));
     }
+    std::string list;
+    for (const auto& a : keys) list += (list.empty() ? "" : ", ") + a;
+    throw InputError(fmt::format("{}:{}: unknown key '{}' (known: {})", path, line, full, list));
   }
 }
 
@@ -144,7 +154,10 @@ Scenario parse_scenario(const std::string& text, const std::string& path) {
       p.ecc = num(path, *t, "planets", "ecc", 0.0);
       p.omega_deg = num(path, *t, "planets", "omega_deg", 90.0);
       p.t_conj_bjd = num(path, *t, "planets", "t_conj_bjd", s.start_bjd + 0.3 * p.period_d);
-      if (const toml::node* n = t->get("transiting")) p.transiting = n->value<bool>().value_or(false);
+      if (const toml::node* n = t->get("transiting")) {
+        if (!n->is_boolean()) throw InputError(fmt::format("{} must be true or false", where(path, *n, "planets.transiting")));
+        p.transiting = *n->value<bool>();
+      }
       s.planets.push_back(p);
     }
   }
@@ -170,8 +183,11 @@ Scenario parse_scenario(const std::string& text, const std::string& path) {
 }
 
 Scenario load_scenario(const std::string& path) {
+  std::error_code ec;
+  if (!std::filesystem::exists(path, ec)) throw InputError(fmt::format("{}: no such file", path));
+  if (std::filesystem::is_directory(path, ec)) throw InputError(fmt::format("{}: is a directory, not a scenario file", path));
   std::ifstream in(path);
-  if (!in) throw InputError(fmt::format("{}: no such file or not readable", path));
+  if (!in) throw InputError(fmt::format("{}: cannot be opened for reading", path));
   std::stringstream ss;
   ss << in.rdbuf();
   return parse_scenario(ss.str(), path);

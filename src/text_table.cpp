@@ -3,6 +3,7 @@
 #include <fmt/format.h>
 
 #include <cerrno>
+#include <algorithm>
 #include <cmath>
 #include <cstdlib>
 #include <filesystem>
@@ -49,6 +50,42 @@ std::vector<std::string> split_comma(const std::string& s) {
 }  // namespace
 
 std::string display_path(const std::string& path) { return path; }
+
+std::string suggest_key(const std::string& key, const std::vector<std::string>& allowed) {
+  auto edit_distance = [](const std::string& a, const std::string& b) {
+    std::vector<std::size_t> prev(b.size() + 1), cur(b.size() + 1);
+    for (std::size_t j = 0; j <= b.size(); ++j) prev[j] = j;
+    for (std::size_t i = 1; i <= a.size(); ++i) {
+      cur[0] = i;
+      for (std::size_t j = 1; j <= b.size(); ++j) {
+        cur[j] = std::min({prev[j] + 1, cur[j - 1] + 1, prev[j - 1] + (a[i - 1] == b[j - 1] ? 0 : 1)});
+      }
+      std::swap(prev, cur);
+    }
+    return prev[b.size()];
+  };
+  std::string best;
+  std::size_t best_d = 3;
+  for (const auto& a : allowed) {
+    const std::size_t d = edit_distance(key, a);
+    if (d < best_d) {
+      best_d = d;
+      best = a;
+    }
+  }
+  if (!best.empty()) return best;
+  const std::size_t need = std::max<std::size_t>(4, (6 * key.size() + 9) / 10);
+  std::size_t best_prefix = 0;
+  for (const auto& a : allowed) {
+    std::size_t k = 0;
+    while (k < a.size() && k < key.size() && a[k] == key[k]) ++k;
+    if (k >= need && (k > best_prefix || (k == best_prefix && a.size() < best.size()))) {
+      best_prefix = k;
+      best = a;
+    }
+  }
+  return best;
+}
 
 std::string file_stem(const std::string& path) { return fs::path(path).stem().string(); }
 
@@ -125,8 +162,31 @@ TextTable read_text_table(const std::string& path) {
     if (body.empty()) continue;
     any_nonblank = true;
     const bool has_comma = body.find(',') != std::string::npos;
+    if (body.find(';') != std::string::npos) {
+      throw InputError(fmt::format(
+          "{}:{}: is semicolon-separated; separate columns with commas, tabs or spaces "
+          "(and use '.' as the decimal point)",
+          path, line_no));
+    }
     const char this_delim = has_comma ? ',' : ' ';
     std::vector<std::string> fields = has_comma ? split_comma(body) : split_whitespace(body);
+    if (has_comma) {
+      for (std::size_t i = 0; i < fields.size(); ++i) {
+        std::string& f = fields[i];
+        // Spreadsheet exports quote fields: "2459000.5","3.2" reads as 2459000.5, 3.2.
+        if (f.size() >= 2 && f.front() == '"' && f.back() == '"') f = trim(f.substr(1, f.size() - 2));
+        // Numbers separated by both commas and blanks on one line: mixed delimiters.
+        const std::vector<std::string> parts = split_whitespace(f);
+        bool all_numeric = parts.size() > 1;
+        for (const auto& q : parts) all_numeric = all_numeric && looks_numeric(q);
+        if (all_numeric) {
+          throw InputError(fmt::format(
+              "{}:{}: mixed delimiters: column {} ('{}') holds blank-separated numbers in a "
+              "comma-separated line; use one kind of delimiter per file",
+              path, line_no, i + 1, f));
+        }
+      }
+    }
     // A header row names columns: none of its fields is a number. (A data row with a
     // typo in one field still has numbers elsewhere and gets a precise error below.)
     bool none_numeric = true;

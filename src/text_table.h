@@ -34,6 +34,11 @@ long double parse_long_double(const std::string& text, const std::string& path, 
 bool looks_numeric(const std::string& text);
 
 std::string file_stem(const std::string& path);
+
+// For an unknown key: the allowed key the user most likely meant, or "" when none is
+// close. Close: at most two edits away, or sharing a long prefix ("sigma" -> "sigma_ms",
+// "velocity" -> "velocities").
+std::string suggest_key(const std::string& key, const std::vector<std::string>& allowed);
 std::string display_path(const std::string& path);
 
 }  // namespace apsides::detail

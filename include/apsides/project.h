@@ -42,12 +42,14 @@ struct StarSpec {
 struct VelocitySource {
   std::string file;  // resolved path
   VelocityFileOptions options;
+  std::string origin;  // "project.toml:LINE" of the block, for messages
 };
 
 struct TransitSource {
   std::string file;  // resolved path
   std::string planet = "b";
   bool fit_jitter = false;
+  std::string origin;  // "project.toml:LINE" of the block, for messages
 };
 
 struct SearchSettings {
@@ -70,6 +72,7 @@ struct PriorSpec {
   std::string parameter;  // e.g. "b.period_d", "north.jitter_ms", "eccentricity"
   Prior prior;
   std::optional<EccentricityPrior> eccentricity;  // for "eccentricity" / "b.eccentricity"
+  std::string origin;  // "project.toml:LINE" of the entry, for messages
 };
 
 struct SamplerSettings {
@@ -100,7 +103,10 @@ struct Project {
   SamplerSettings sampler;
   EvidenceSettings evidence;
 
-  VelocityData load_velocities() const;  // reads and combines every [[velocities]] file
+  // Reads and combines every [[velocities]] file (a missing file is reported with the
+  // project line naming it), then checks that every [priors] key naming an instrument
+  // ("<instrument>.offset_ms", "<instrument>.jitter_ms") names one present in the data.
+  VelocityData load_velocities() const;
   TransitData load_transits() const;     // all [[transits]] files, planet label per file
 };
 

@@ -1,0 +1,135 @@
+// The project file: a three-line project gets every documented default, every key is
+// read, data paths resolve relative to the project file, and the committed demo project
+// loads its data (counts checked against the CSV files read by Python's csv module).
+#include <doctest/doctest.h>
+
+#include <filesystem>
+#include <nlohmann/json.hpp>
+#include <string>
+
+#include "apsides/project.h"
+#include "test_support.h"
+
+namespace {
+namespace t = apsides::test;
+}
+
+TEST_SUITE("project") {
+
+TEST_CASE("a three-line project gets the documented defaults") {
+  const auto pr = apsides::parse_project("[[velocities]]\nfile = \"rv.csv\"\n", "p.toml", "/data");
+  REQUIRE(pr.velocities.size() == 1);
+  CHECK(pr.velocities[0].file == "/data/rv.csv");
+  CHECK(pr.velocities[0].options.instrument.empty());
+  CHECK(pr.velocities[0].options.unit == apsides::VelocityUnit::kMetersPerSecond);
+  CHECK(pr.velocities[0].origin == "p.toml:2");
+  CHECK_FALSE(pr.star.mass_msun.has_value());
+  CHECK(pr.star.mass_err_msun == 0.0);
+  CHECK(pr.transits.empty());
+  CHECK(pr.search.max_planets == 3);
+  CHECK(pr.search.oversample == 10.0);
+  CHECK(pr.search.fap_threshold == 1e-3);
+  CHECK_FALSE(pr.model.planets.has_value());
+  CHECK(pr.model.trend == apsides::Trend::kNone);
+  CHECK(pr.model.fit_jitter);
+  CHECK(pr.sampler.walkers == 0);
+  CHECK(pr.sampler.max_steps == 200000);
+  CHECK(pr.sampler.seed == 1);
+  CHECK(pr.evidence.live_points == 400);
+  CHECK(pr.priors.empty());
+}
+
+TEST_CASE("every section's keys are read") {
+  const std::string text = R"([star]
+name = "HD 1"
+mass_msun = 0.93
+mass_err_msun = 0.04
+radius_rsun = 0.9
+radius_err_rsun = 0.05
+[[velocities]]
+file = "north.csv"
+instrument = "north"
+velocity_unit = "km/s"
+[[velocities]]
+file = "/abs/south.csv"
+[[transits]]
+file = "times.csv"
+planet = "c"
+[search]
+max_planets = 2
+min_period_d = 1.5
+max_period_d = 3000
+[model]
+planets = 2
+trend = "linear"
+fit_jitter = false
+eccentricity = "beta"
+[priors]
+"b.period_d" = { dist = "log-uniform", min = 1, max = 100 }
+[sampler]
+walkers = 64
+seed = 9
+[evidence]
+live_points = 100
+)";
+  const auto pr = apsides::parse_project(text, "dir/p.toml", "dir");
+  CHECK(pr.star.name == "HD 1");
+  CHECK(*pr.star.mass_msun == 0.93);
+  CHECK(pr.star.mass_err_msun == 0.04);
+  CHECK(*pr.star.radius_rsun == 0.9);
+  REQUIRE(pr.velocities.size() == 2);
+  CHECK(pr.velocities[0].file == "dir/north.csv");
+  CHECK(pr.velocities[0].options.instrument == "north");
+  CHECK(pr.velocities[0].options.unit == apsides::VelocityUnit::kKilometersPerSecond);
+  CHECK(pr.velocities[1].file == "/abs/south.csv");
+  REQUIRE(pr.transits.size() == 1);
+  CHECK(pr.transits[0].planet == "c");
+  CHECK(pr.search.max_planets == 2);
+  CHECK(*pr.search.min_period_d == 1.5);
+  CHECK(*pr.model.planets == 2);
+  CHECK(pr.model.trend == apsides::Trend::kLinear);
+  CHECK_FALSE(pr.model.fit_jitter);
+  CHECK(pr.model.eccentricity == apsides::EccentricityPriorKind::kBeta);
+  REQUIRE(pr.priors.size() == 1);
+  CHECK(pr.priors[0].parameter == "b.period_d");
+  CHECK(pr.priors[0].origin == "dir/p.toml:26");
+  CHECK(pr.sampler.walkers == 64);
+  CHECK(pr.sampler.seed == 9);
+  CHECK(pr.evidence.live_points == 100);
+  CHECK(pr.text == text);
+}
+
+TEST_CASE("data paths are relative to the project file, wherever the program runs") {
+  const std::string d = t::temp_dir("project/relative");
+  std::filesystem::create_directories(d + "/proj/data");
+  t::write_text(d, "proj/data/rv.csv", "2459000.5,1,1\n2459001.5,2,1\n2459002.5,3,1\n");
+  const std::string toml = t::write_text(d, "proj/project.toml", "[[velocities]]\nfile = \"data/rv.csv\"\ninstrument = \"x\"\n");
+  const auto data = apsides::load_project(toml).load_velocities();
+  CHECK(data.size() == 3);
+  CHECK(data.instrument_names == std::vector<std::string>{"x"});
+}
+
+TEST_CASE("the demo project loads its three instruments and transit times as Python's csv reads them") {
+  const std::string demo = t::source_dir() + "/datasets_synthetic/demo";
+  const auto pr = apsides::load_project(demo + "/project.toml");
+  const auto v = pr.load_velocities();
+  const auto tr = pr.load_transits();
+  const auto r = t::run_python(
+      "import csv, json\n"
+      "d = '" + demo + "'\n"
+      "n = {k: len(list(csv.DictReader(open(f'{d}/velocities_{k}.csv')))) for k in ['Kestrel', 'Tern', 'Petrel']}\n"
+      "p = [float(r['velocity']) for r in csv.DictReader(open(f'{d}/velocities_Petrel.csv'))]\n"
+      "print(json.dumps({'n': n, 'transits': len(list(csv.DictReader(open(f'{d}/transits.csv')))), 'petrel0': p[0]}))\n");
+  REQUIRE_MESSAGE(r.status == 0, r.output);
+  const auto ref = nlohmann::json::parse(r.output);
+  CHECK(v.instrument_names == std::vector<std::string>{"Kestrel", "Tern", "Petrel"});
+  for (int i = 0; i < 3; ++i) CHECK(v.count(i) == ref["n"][v.instrument_names[static_cast<std::size_t>(i)]].get<std::size_t>());
+  CHECK(tr.size() == ref["transits"].get<std::size_t>());
+  CHECK(tr.planet.front() == "b");
+  // Petrel is declared km/s: converted to m/s on reading.
+  const auto petrel = v.subset(2);
+  CHECK(petrel.velocity_m_s.front() == doctest::Approx(1000 * ref["petrel0"].get<double>()).epsilon(1e-14));
+  CHECK(v.warnings.empty());
+}
+
+}  // TEST_SUITE
