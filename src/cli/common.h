@@ -25,6 +25,7 @@ struct Command {
   Action run;
 };
 Command register_simulate(CLI::App& app);
+Command register_scan(CLI::App& app);
 Command register_summarize(CLI::App& app);
 Command register_sample(CLI::App& app);
 Command register_fit(CLI::App& app);

@@ -20,6 +20,7 @@ int main(int argc, char** argv) {
   app.require_subcommand(1);
   std::vector<apsides::cli::Command> commands;
   commands.push_back(apsides::cli::register_simulate(app));
+  commands.push_back(apsides::cli::register_scan(app));
   commands.push_back(apsides::cli::register_summarize(app));
   commands.push_back(apsides::cli::register_sample(app));
   commands.push_back(apsides::cli::register_fit(app));
