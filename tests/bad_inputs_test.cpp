@@ -385,7 +385,8 @@ TEST_CASE("too few points for the model are rejected: n must exceed the free par
 
 TEST_CASE("an instrument with a single point cannot have its own offset and jitter") {
   Scratch s("one_point");
-  const std::string p = s.write("rv.csv", "2459000.5,1,1,A\n2459001.5,2,1,A\n2459002.5,3,1,A\n2459003.5,1,1,B\n");
+  const std::string p = s.write("rv.csv", "2459000.5,1,1,A\n2459001.5,2,1,A\n2459002.5,3,1,A\n2459003.5,1,1,B\n"
+                                          "2459004.5,1,1,A\n2459005.5,2,1,A\n2459006.5,3,1,A\n");
   const apsides::VelocityData d = apsides::load_velocities({p}, {{}});
   apsides::ModelLayout layout;
   layout.n_instruments = 2;
