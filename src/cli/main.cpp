@@ -25,6 +25,7 @@ int main(int argc, char** argv) {
   commands.push_back(apsides::cli::register_sample(app));
   commands.push_back(apsides::cli::register_fit(app));
   commands.push_back(apsides::cli::register_ephemeris(app));
+  commands.push_back(apsides::cli::register_compare(app));
 
   try {
     app.parse(argc, argv);
