@@ -679,11 +679,9 @@ CompareResult compare_planet_counts(const VelocityData& data, const ModelLayout&
     if (res.rows[k].ln_bayes_vs_previous > options.bayes_threshold &&
         res.rows[k].nested.termination == NestedTermination::kConverged)
       res.selected_n_planets = static_cast<int>(k);
-    else
-      break;
   }
   res.selection_rule = fmt::format(
-      "the largest k for which every step 0 -> 1 -> ... -> k has ln B(k vs k-1) > {:g} (Kass & Raftery 1995: "
+      "the largest k whose ln B(k vs k-1) > {:g} (Kass & Raftery 1995: "
       "> 5 is \"very strong\")",
       options.bayes_threshold);
   bool failed = false;

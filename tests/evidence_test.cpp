@@ -7,6 +7,7 @@
 #include "apsides/constants.h"
 #include "apsides/error.h"
 #include "apsides/evidence.h"
+#include "apsides/simulate.h"
 
 using namespace apsides;
 
@@ -24,6 +25,46 @@ NestedProblem gaussian_in_box(int d, double a, double sigma) {
     for (double v : x) r2 += v * v;
     return -0.5 * r2 / (sigma * sigma) - d * (std::log(sigma) + 0.5 * std::log(2.0 * constants::kPi));
   };
+  return p;
+}
+
+// Velocities of one simulated instrument (40 nights over 600 d, 2 m/s errors).
+VelocityData simulated(std::vector<SimPlanet> planets, unsigned long long seed) {
+  Scenario sc;
+  sc.seed = seed;
+  sc.span_days = 600.0;
+  SimInstrument inst;
+  inst.name = "north";
+  inst.n_points = 40;
+  sc.instruments.push_back(inst);
+  sc.planets = std::move(planets);
+  const SimulatedData sim = simulate(sc);
+  VelocityData d;
+  d.instrument_names = {"north"};
+  d.reference_epoch_bjd = 2460300.0;
+  for (const auto& r : sim.velocities) {
+    d.time_days.push_back(static_cast<double>(r.time_bjd - 2460300.0L));
+    d.velocity_m_s.push_back(r.velocity);
+    d.uncertainty_m_s.push_back(r.uncertainty);
+    d.instrument.push_back(0);
+    d.origin.push_back("sim");
+  }
+  return d;
+}
+
+// Priors stated in the test (a period range 2-200 d keeps the runs short).
+ModelPriors test_priors(const ModelLayout& layout) {
+  ModelPriors p;
+  for (int j = 0; j < layout.n_planets; ++j) {
+    p.parameter.push_back(Prior::log_uniform(2.0, 200.0));
+    p.parameter.push_back(Prior::modified_jeffreys(2.0, 100.0));
+    p.parameter.push_back(Prior::uniform(-1.0, 1.0));
+    p.parameter.push_back(Prior::uniform(-1.0, 1.0));
+    p.parameter.push_back(Prior::uniform(-100.0, 100.0));
+    p.eccentricity.push_back(EccentricityPrior{});
+  }
+  p.parameter.push_back(Prior::uniform(-50.0, 50.0));  // offset
+  p.parameter.push_back(Prior::half_normal(5.0));      // jitter
   return p;
 }
 }  // namespace
@@ -133,5 +174,56 @@ TEST_SUITE("evidence") {
     CHECK(bic(-100.0, 5, 50) == doctest::Approx(5.0 * std::log(50.0) + 200.0));
     CHECK(aicc(-100.0, 5, 50) == doctest::Approx(10.0 + 200.0 + 60.0 / 44.0));
     CHECK(std::isnan(aicc(-100.0, 5, 6)));
+  }
+
+  TEST_CASE("evidence: a one-planet simulation gives ln B(1 vs 0) > 5 and ln B(2 vs 1) < 1; noise selects 0") {
+    // Data from the library's simulate(); the thresholds are Kass & Raftery 1995's
+    // "very strong" (CHECKS.md section 6). 150 live points (default 400) keep this fast.
+    ModelLayout base;
+    CompareOptions opt;
+    opt.nested.live_points = 150;
+    opt.nested.seed = 3;
+    SimPlanet b;
+    b.period_d = 23.4;
+    b.K_ms = 8.0;
+    b.ecc = 0.1;
+    b.t_conj_bjd = 2460003.0;
+    opt.max_planets = 2;
+    const CompareResult one = compare_planet_counts(simulated({b}, 21), base, test_priors, opt);
+    CAPTURE(one.FullReport());
+    REQUIRE(one.rows.size() == 3);
+    CHECK(one.rows[1].ln_bayes_vs_previous > 5.0);
+    CHECK(one.rows[2].ln_bayes_vs_previous < 1.0);
+    CHECK(one.selected_n_planets == 1);
+    // The posterior of the one-planet model finds the simulated period.
+    CHECK(one.rows[1].nested.weighted_quantile(0, 0.5) == doctest::Approx(23.4).epsilon(0.01));
+
+    opt.max_planets = 1;
+    const CompareResult noise = compare_planet_counts(simulated({}, 22), base, test_priors, opt);
+    CAPTURE(noise.FullReport());
+    CHECK(noise.rows[1].ln_bayes_vs_previous < 1.0);
+    CHECK(noise.selected_n_planets == 0);
+  }
+
+  TEST_CASE("evidence: a two-planet simulation selects 2") {
+    ModelLayout base;
+    CompareOptions opt;
+    opt.nested.live_points = 150;
+    opt.nested.seed = 4;
+    opt.max_planets = 2;
+    SimPlanet b, c;
+    b.period_d = 9.1;
+    b.K_ms = 9.0;
+    b.t_conj_bjd = 2460001.0;
+    c.period_d = 61.0;
+    c.K_ms = 12.0;
+    c.ecc = 0.2;
+    c.t_conj_bjd = 2460020.0;
+    const CompareResult two = compare_planet_counts(simulated({b, c}, 23), base, test_priors, opt);
+    CAPTURE(two.FullReport());
+    CHECK(two.selected_n_planets == 2);
+    // Labelled by increasing period.
+    CHECK(two.rows[2].nested.weighted_quantile(0, 0.5) == doctest::Approx(9.1).epsilon(0.01));
+    CHECK(two.rows[2].nested.weighted_quantile(5, 0.5) == doctest::Approx(61.0).epsilon(0.02));
   }
 }

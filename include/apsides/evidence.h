@@ -191,9 +191,9 @@ double aicc(double ln_like_max, int n_params, std::size_t n_points);
 struct CompareOptions {
   int max_planets = 2;          // compare 0..max_planets Keplerians
   NestedOptions nested;         // sampler settings for every k
-  // Selection rule: the largest k whose ln B against k - 1 exceeds this, each smaller k
-  // also passing (a planet is added only while each addition is supported). Kass & Raftery
-  // call ln B > 5 "very strong".
+  // Selection rule: the largest k whose ln B against k - 1 exceeds this (a smaller step
+  // may be weaker: two planets of similar amplitude can each explain little alone). Kass &
+  // Raftery call ln B > 5 "very strong".
   double bayes_threshold = 5.0;
   bool phase_conjunction = true;  // see make_rv_evidence_problem
   std::string Validate() const;

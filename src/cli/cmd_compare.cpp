@@ -126,7 +126,7 @@ Command register_compare(CLI::App& app) {
       ->check(CLI::Range(20, 100000));
   cmd->add_option("--seed", args->seed, "Random seed (default [evidence] seed)")->check(CLI::NonNegativeNumber);
   cmd->add_option("--threshold", args->threshold,
-                  "Selection: largest k whose ln B against k - 1 exceeds this, each step (default 5)");
+                  "Selection: largest k whose ln B against k - 1 exceeds this (default 5)");
   cmd->add_option("--threads", args->threads, "Threads (results do not depend on it)")->check(CLI::Range(1, 64));
   cmd->add_option("-o,--out", args->out, "Also write the comparison and nested samples into this HDF5 results file");
   add_common_options(cmd, args->common);
