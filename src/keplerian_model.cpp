@@ -159,6 +159,22 @@ void put_planet(std::span<double> theta, const ModelLayout& layout, int planet, 
 KeplerianModel::KeplerianModel(VelocityData data, ModelLayout layout)
     : data_(std::move(data)), layout_(layout) {
   assert(static_cast<std::size_t>(layout_.n_instruments) == data_.n_instruments());
+  // The likelihood is a sum over points, so it may visit them grouped by instrument:
+  // each block then has one offset and one jitter, and the kernel sees contiguous arrays.
+  const std::size_t n = data_.size();
+  block_time_days_.reserve(n);
+  block_velocity_m_s_.reserve(n);
+  block_variance_m2_s2_.reserve(n);
+  block_start_.assign(1, 0);
+  for (int k = 0; k < layout_.n_instruments; ++k) {
+    for (std::size_t i = 0; i < n; ++i) {
+      if (data_.instrument[i] != k) continue;
+      block_time_days_.push_back(data_.time_days[i]);
+      block_velocity_m_s_.push_back(data_.velocity_m_s[i]);
+      block_variance_m2_s2_.push_back(data_.uncertainty_m_s[i] * data_.uncertainty_m_s[i]);
+    }
+    block_start_.push_back(block_time_days_.size());
+  }
 }
 
 namespace {
@@ -180,30 +196,30 @@ bool physical(std::span<const double> theta, const ModelLayout& L) {
   return true;
 }
 
-struct Scratch {
-  std::vector<double> model, var, buf;
-  void resize(std::size_t n) {
-    if (model.size() < n) {
-      model.resize(n);
-      var.resize(n);
-      buf.resize(2 * n);
-    }
-  }
-};
-thread_local Scratch tl_scratch;
+// Per-thread scratch of the fast likelihood, so concurrent const calls never share it.
+thread_local std::vector<double> tl_scratch;
+
+kernels::KeplerTerm kepler_term(const Planet& p) {
+  const double e = p.ecc(), w = p.omega_rad();
+  kernels::KeplerTerm term;
+  term.mean_motion_rad_per_day = kTwoPi / p.period_days;
+  term.mean_anomaly_at_zero =
+      mean_anomaly_at_conjunction(e, w) - kTwoPi * p.t_conj_days / p.period_days;
+  term.semi_amplitude_m_s = p.semi_amplitude_m_s;
+  term.ecc = e;
+  term.omega_rad = w;
+  return term;
+}
+
+constexpr int kMaxStackPlanets = 16;
 }  // namespace
 
 void KeplerianModel::planets_velocity(std::span<const double> theta, std::span<const double> t,
                                       std::span<double> out) const {
   std::fill(out.begin(), out.end(), 0.0);
-  std::vector<double> buf(2 * t.size());
-  for (int j = 0; j < layout_.n_planets; ++j) {
-    const Planet p = planet_from(theta, layout_, j);
-    const double e = p.ecc(), w = p.omega_rad();
-    const double M0 = mean_anomaly_at_conjunction(e, w) - kTwoPi * p.t_conj_days / p.period_days;
-    kernels::add_keplerian(t.data(), t.size(), p.period_days, p.semi_amplitude_m_s, e, w, M0,
-                           out.data(), buf.data());
-  }
+  std::vector<kernels::KeplerTerm> terms;
+  for (int j = 0; j < layout_.n_planets; ++j) terms.push_back(kepler_term(planet_from(theta, layout_, j)));
+  kernels::add_keplerians(t.data(), t.size(), terms.data(), layout_.n_planets, out.data());
 }
 
 std::vector<double> KeplerianModel::predict(std::span<const double> theta) const {
@@ -242,32 +258,32 @@ double KeplerianModel::chi_square(std::span<const double> theta) const {
 double KeplerianModel::log_likelihood(std::span<const double> theta) const {
   assert(theta.size() == layout_.n_params());
   if (!physical(theta, layout_)) return kNegInf;
-  const std::size_t n = data_.size();
-  Scratch& s = tl_scratch;
-  s.resize(n);
-  double* model = s.model.data();
-  double* var = s.var.data();
-  const double* t = data_.time_days.data();
-  const int* inst = data_.instrument.data();
-  const double* y = data_.velocity_m_s.data();
-  const double* dy = data_.uncertainty_m_s.data();
-  // Offsets and trend first, then each planet added by the kernel.
+  // Planet terms on the stack for the usual handful of planets, on the heap beyond.
+  kernels::KeplerTerm stack_terms[kMaxStackPlanets];
+  std::vector<kernels::KeplerTerm> heap_terms;
+  kernels::KeplerTerm* terms = stack_terms;
+  if (layout_.n_planets > kMaxStackPlanets) {
+    heap_terms.resize(static_cast<std::size_t>(layout_.n_planets));
+    terms = heap_terms.data();
+  }
+  for (int k = 0; k < layout_.n_planets; ++k) terms[k] = kepler_term(planet_from(theta, layout_, k));
   const double c1 = layout_.trend_order() >= 1 ? theta[layout_.trend_index(1)] : 0.0;
   const double c2 = layout_.trend_order() >= 2 ? theta[layout_.trend_index(2)] : 0.0;
-  for (std::size_t i = 0; i < n; ++i) {
-    const double ti = t[i];
-    model[i] = -(y[i] - theta[layout_.offset_index(inst[i])] - (c1 + c2 * ti) * ti);
-    double j = layout_.fit_jitter ? theta[layout_.jitter_index(inst[i])] : 0.0;
-    var[i] = dy[i] * dy[i] + j * j;
+
+  std::vector<double>& scratch = tl_scratch;
+  if (scratch.size() < data_.size()) scratch.resize(data_.size());
+  double lnl = 0.0;
+  for (int i = 0; i < layout_.n_instruments; ++i) {
+    const std::size_t b = block_start_[static_cast<std::size_t>(i)];
+    const std::size_t n = block_start_[static_cast<std::size_t>(i) + 1] - b;
+    if (n == 0) continue;
+    const double offset = theta[layout_.offset_index(i)];
+    const double jitter = layout_.fit_jitter ? theta[layout_.jitter_index(i)] : 0.0;
+    lnl += kernels::block_lnlike(block_time_days_.data() + b, block_velocity_m_s_.data() + b,
+                                 block_variance_m2_s2_.data() + b, n, terms, layout_.n_planets,
+                                 offset, jitter * jitter, c1, c2, scratch.data());
   }
-  // model[i] now holds -(y - offset - trend); adding planets gives -(residual).
-  for (int k = 0; k < layout_.n_planets; ++k) {
-    const Planet p = planet_from(theta, layout_, k);
-    const double e = p.ecc(), w = p.omega_rad();
-    const double M0 = mean_anomaly_at_conjunction(e, w) - kTwoPi * p.t_conj_days / p.period_days;
-    kernels::add_keplerian(t, n, p.period_days, p.semi_amplitude_m_s, e, w, M0, model, s.buf.data());
-  }
-  return kernels::gaussian_lnlike(model, var, n);
+  return lnl;
 }
 
 double KeplerianModel::log_likelihood_reference(std::span<const double> theta) const {

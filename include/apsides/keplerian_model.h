@@ -110,6 +110,10 @@ class KeplerianModel {
  private:
   VelocityData data_;
   ModelLayout layout_;
+  // The data regrouped by instrument for the fast likelihood (built by the constructor):
+  // instrument i owns entries [block_start_[i], block_start_[i + 1]).
+  std::vector<double> block_time_days_, block_velocity_m_s_, block_variance_m2_s2_;
+  std::vector<std::size_t> block_start_;
 };
 
 }  // namespace apsides

@@ -8,18 +8,36 @@
 namespace apsides::kernels {
 
 // sin E and cos E solving M[i] = E - e sin E, one e for all points, any real M.
+// Output arrays must not overlap the input or each other.
 void kepler_sincos(const double* M, std::size_t n, double e, double* sin_E, double* cos_E);
-// E in [0, 2 pi) for per-point (M, e).
+// E in [0, 2 pi) for per-point (M, e). E must not overlap M or e.
 void kepler_batch(const double* M, const double* e, std::size_t n, double* E);
+// s[i] = sin x[i], c[i] = cos x[i] through the vector math library: the cost of one
+// vectorised sin+cos pair, the yardstick of the Kepler benchmark.
+void sincos_batch(const double* x, std::size_t n, double* s, double* c);
 
-// out[i] += K [cos(nu_i + w) + e cos w] for t[i], one planet given by
-// (period, K, e, omega, mean anomaly at t = 0 `M0`): M_i = 2 pi t_i / P + M0.
-// `scratch` holds at least 2 n doubles.
-void add_keplerian(const double* t, std::size_t n, double period, double K, double e,
-                   double omega, double M0, double* out, double* scratch);
+// One planet's velocity term in the form the kernels use: mean anomaly
+// M_i = mean_motion t_i + M0 (rad), and v = K [cos(nu + w) + e cos w].
+struct KeplerTerm {
+  double mean_motion_rad_per_day = 0.0;  // 2 pi / P
+  double mean_anomaly_at_zero = 0.0;     // M at t = 0 (rad)
+  double semi_amplitude_m_s = 0.0;
+  double ecc = 0.0;
+  double omega_rad = 0.0;
+};
 
-// Gaussian log-likelihood of residuals r given variances var (sigma^2 + jitter^2):
-//   -1/2 sum [ r^2 / var + ln(2 pi var) ].
-double gaussian_lnlike(const double* r, const double* var, std::size_t n);
+// out[i] += sum over planets of K [cos(nu_i + w) + e cos w] at times t[i].
+// `out` must not overlap `t`.
+void add_keplerians(const double* t, std::size_t n, const KeplerTerm* planets, int n_planets,
+                    double* out);
+
+// Gaussian log-likelihood of one instrument's block of points:
+//   r_i = y_i - offset - (c1 + c2 t_i) t_i - sum_planets v(t_i),
+//   var_i = sigma2_i + jitter2,
+//   returns -1/2 sum [ r_i^2 / var_i + ln(2 pi var_i) ].
+// `scratch` holds at least n doubles and must not overlap the inputs.
+double block_lnlike(const double* t, const double* y, const double* sigma2, std::size_t n,
+                    const KeplerTerm* planets, int n_planets, double offset, double jitter2,
+                    double c1, double c2, double* scratch);
 
 }  // namespace apsides::kernels
