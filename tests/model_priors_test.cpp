@@ -135,7 +135,7 @@ TEST_SUITE("model_priors") {
                          doctest::Contains("priors.b.period_d: impossible prior: min = 5 is not below max = 3"),
                          InputError);
     CHECK_THROWS_WITH_AS(build(spec("b.secosw", Prior::uniform(-0.5, 0.5))),
-                         doctest::Contains("use \"b.eccentricity\""), InputError);
+                         doctest::Contains("with \"b.eccentricity\" instead"), InputError);
     PriorSpec e;
     e.parameter = "d.eccentricity";
     e.eccentricity = EccentricityPrior{};

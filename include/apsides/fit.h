@@ -59,7 +59,7 @@ struct FitOptions {
   // true: maximise ln L + ln prior (MAP). false: maximise ln L inside the prior support.
   bool use_prior_density = true;
   // Evaluation limit of each local optimisation (>= 100).
-  int max_evaluations = 3000;
+  int max_evaluations = 8000;
   // Convergence: relative change of the parameters, absolute change of the objective.
   double xtol_rel = 1e-10;
   double ftol_abs = 1e-9;

@@ -201,7 +201,7 @@ Command register_fit(CLI::App& app) {
             const std::vector<PlanetSummary> planets = derive_planets(fit, mass);
             print_fit(fit, planets, mass);
             nlohmann::json fj = fit_json(fit, planets, mass);
-            fj.update(j);
+            if (j.is_object()) fj.update(j);
             fj["data"] = {{"n_points", sp.data.size()}, {"instruments", sp.data.instrument_names},
                           {"baseline_d", sp.data.baseline_days()}};
             if (mass) fj["star"] = {{"mass_msun", *mass}, {"mass_err_msun", args->star_mass_err}};
