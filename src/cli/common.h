@@ -25,12 +25,12 @@ struct Command {
   Action run;
 };
 Command register_simulate(CLI::App& app);
-Command register_scan(CLI::App& app);
+Command register_fit(CLI::App& app);
 Command register_summarize(CLI::App& app);
 Command register_sample(CLI::App& app);
-Command register_fit(CLI::App& app);
 Command register_ephemeris(CLI::App& app);
 Command register_compare(CLI::App& app);
+Command register_scan(CLI::App& app);
 
 // Writes text to `path` atomically (temporary file + rename): never half-written.
 void write_file_atomic(const std::string& path, const std::string& content);

@@ -19,13 +19,14 @@ int main(int argc, char** argv) {
   app.set_version_flag("--version", "apsides 0.1.0");
   app.require_subcommand(1);
   std::vector<apsides::cli::Command> commands;
-  commands.push_back(apsides::cli::register_simulate(app));
+  // In the order of the job: look, fit, sample, compare, summarise; transits; make data.
   commands.push_back(apsides::cli::register_scan(app));
-  commands.push_back(apsides::cli::register_summarize(app));
-  commands.push_back(apsides::cli::register_sample(app));
   commands.push_back(apsides::cli::register_fit(app));
-  commands.push_back(apsides::cli::register_ephemeris(app));
+  commands.push_back(apsides::cli::register_sample(app));
   commands.push_back(apsides::cli::register_compare(app));
+  commands.push_back(apsides::cli::register_summarize(app));
+  commands.push_back(apsides::cli::register_ephemeris(app));
+  commands.push_back(apsides::cli::register_simulate(app));
 
   try {
     app.parse(argc, argv);
