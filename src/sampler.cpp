@@ -186,6 +186,19 @@ std::vector<ParameterDiagnostics> diagnose_rows(const std::vector<std::vector<do
   return out;
 }
 
+namespace {
+long round_up(long x, long m) { return ((x + m - 1) / m) * m; }
+}  // namespace
+
+long first_check_step(const SamplerOptions& o) {
+  return round_up(std::max(o.min_steps, o.check_every_steps), o.check_every_steps);
+}
+
+long next_check_step(long previous, const SamplerOptions& o) {
+  const long grown = previous + std::max(o.check_every_steps, previous / 5);
+  return round_up(grown, o.check_every_steps);
+}
+
 SamplerResult run_sampler(const LogDensity& log_density, std::size_t dim, const SamplerOptions& options,
                           const SamplerState& start, SamplerObserver* observer,
                           const std::vector<std::vector<double>>* resume_chain_rows) {
@@ -233,6 +246,13 @@ SamplerResult run_sampler(const LogDensity& log_density, std::size_t dim, const 
     for (std::size_t i = 0; i < steps.size() && i < resume_chain_rows->size(); ++i)
       rows.emplace_back(steps[i], (*resume_chain_rows)[i]);
   }
+
+  // Convergence checks on a fixed geometric schedule (each check at least 20 % more steps
+  // than the last, on multiples of check_every_steps): a pure function of the step, so a
+  // resumed run checks and stops exactly where the uninterrupted one would, and the cost
+  // of the diagnostics stays a small fraction of the sampling however long the chain.
+  long next_check = first_check_step(options);
+  while (next_check <= state.step) next_check = next_check_step(next_check, options);
 
   auto current_diagnostics = [&](long steps) {
     std::vector<std::vector<double>> kept;
@@ -333,7 +353,8 @@ SamplerResult run_sampler(const LogDensity& log_density, std::size_t dim, const 
       observer->on_checkpoint(state);
       last_checkpoint = state.step;
     }
-    if (state.step % options.check_every_steps == 0 && state.step >= options.min_steps) {
+    if (state.step == next_check) {
+      next_check = next_check_step(next_check, options);
       last_check = current_diagnostics(state.step);
       converged = is_converged(last_check);
       if (observer) observer->on_check(last_check);

@@ -15,7 +15,7 @@
 // whatever the number of threads, and a run resumed from any saved state continues
 // exactly as the uninterrupted run would.
 //
-// Convergence (checked every `check_every_steps` on the kept part of the chain, see
+// Convergence (checked on a geometric schedule, see next_check_step, on the kept part of the chain, see
 // SamplerResult::burn_in_steps): rank-normalised split R-hat < rhat_max, bulk and tail ESS
 // >= ess_target for every parameter, and kept chain length > min_tau_multiple x tau_max.
 // Burn-in rule: the first half of the steps are discarded (Gelman et al., Bayesian Data
@@ -57,7 +57,7 @@ struct SamplerOptions {
   double de_jitter = 1e-4;           // relative jitter e of DE moves (uniform, symmetric)
   long check_every_steps = 500;      // convergence checks
   long checkpoint_steps = 1000;      // observer's checkpoint calls
-  std::size_t diagnostic_rows = 4096;  // thinned rows kept in memory for diagnostics
+  std::size_t diagnostic_rows = 2048;  // thinned rows kept in memory for diagnostics
   bool stop_when_converged = true;   // false: always run max_steps
 
   std::string Validate() const;
@@ -127,6 +127,11 @@ std::vector<double> initial_ball(const LogDensity& log_density, std::span<const 
 SamplerResult run_sampler(const LogDensity& log_density, std::size_t dim, const SamplerOptions& options,
                           const SamplerState& start, SamplerObserver* observer = nullptr,
                           const std::vector<std::vector<double>>* resume_chain_rows = nullptr);
+
+// The convergence-check schedule: the first check, and the one after `previous` (at least
+// check_every_steps and 20 % more steps later, on multiples of check_every_steps).
+long first_check_step(const SamplerOptions& options);
+long next_check_step(long previous, const SamplerOptions& options);
 
 // Which stored steps the diagnostics of a chain of `steps` steps use (the thinned rows of
 // its kept half), so that a resumed run can rebuild them from the file.

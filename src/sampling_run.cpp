@@ -1,0 +1,223 @@
+#include "apsides/sampling_run.h"
+
+#include <fmt/format.h>
+
+#include <algorithm>
+#include <cmath>
+#include <memory>
+
+#include "apsides/ephemeris.h"
+#include "apsides/error.h"
+#include "apsides/model_priors.h"
+#include "apsides/posterior.h"
+#include "apsides/results_file.h"
+
+namespace apsides {
+
+struct JointLikelihood::Impl {
+  KeplerianModel model;
+  ModelLayout layout;
+  std::vector<std::pair<int, std::unique_ptr<TransitTimingLikelihood>>> transit_terms;
+  std::size_t n_transits = 0;
+};
+
+JointLikelihood::JointLikelihood(const VelocityData& data, const ModelLayout& layout, const TransitData& transits)
+    : impl_(std::make_unique<Impl>(Impl{KeplerianModel(data, layout), layout, {}, 0})) {
+  for (int j = 0; j < layout.n_planets; ++j) {
+    const TransitData td = transits.size() > 0 ? transits.for_planet(planet_label(j)) : TransitData{};
+    if (td.size() == 0) continue;
+    impl_->n_transits += td.size();
+    impl_->transit_terms.emplace_back(j, std::make_unique<TransitTimingLikelihood>(td, data.reference_epoch_bjd));
+  }
+}
+JointLikelihood::~JointLikelihood() = default;
+JointLikelihood::JointLikelihood(JointLikelihood&&) noexcept = default;
+
+double JointLikelihood::operator()(std::span<const double> theta) const {
+  double l = impl_->model.log_likelihood(theta);
+  if (!std::isfinite(l)) return l;
+  for (const auto& [j, term] : impl_->transit_terms) {
+    const std::size_t k = impl_->layout.planet_index(j);
+    l += term->log_likelihood(theta[k], theta[k + 4]);
+  }
+  return l;
+}
+const KeplerianModel& JointLikelihood::model() const { return impl_->model; }
+std::size_t JointLikelihood::n_transit_points() const { return impl_->n_transits; }
+
+namespace {
+
+// Streams steps to the results file at each checkpoint; nothing touches the file between.
+class FileObserver : public SamplerObserver {
+ public:
+  FileObserver(ResultsFile& file, long max_steps, const SamplingRunOptions& o)
+      : file_(file), max_steps_(max_steps), options_(o) {}
+  void on_step(long step, std::span<const double> p, std::span<const double> lp) override {
+    positions_.emplace_back(p.begin(), p.end());
+    log_prob_.emplace_back(lp.begin(), lp.end());
+    if (options_.progress) options_.progress(step, max_steps_, status_);
+  }
+  void on_checkpoint(const SamplerState& state) override {
+    file_.append_chain_rows(positions_, log_prob_);
+    positions_.clear();
+    log_prob_.clear();
+    file_.write_checkpoint(state);
+  }
+  void on_check(const SamplerResult& r) override {
+    status_ = fmt::format("step {}  R-hat {:.3f}  ESS {:.0f}  tau {:.0f}", r.steps, r.rhat_max, r.ess_min, r.tau_max);
+  }
+  bool should_stop() override { return options_.should_stop && options_.should_stop(); }
+  const std::string& status() const { return status_; }
+
+ private:
+  ResultsFile& file_;
+  long max_steps_;
+  const SamplingRunOptions& options_;
+  std::string status_ = "first check pending";
+  std::vector<std::vector<double>> positions_, log_prob_;
+};
+
+// Ball half-widths around the MAP: small against any posterior width, so the ensemble
+// starts concentrated and the stretch moves expand it.
+std::vector<double> ball_scale(const ModelLayout& layout, std::span<const double> theta) {
+  std::vector<double> s(theta.size(), 1e-3);
+  for (int p = 0; p < layout.n_planets; ++p) {
+    const std::size_t i = layout.planet_index(p);
+    s[i] = 1e-6 * std::abs(theta[i]) + 1e-9;         // period
+    s[i + 1] = 1e-3 * std::abs(theta[i + 1]) + 1e-3;  // K
+    s[i + 2] = s[i + 3] = 1e-3;                       // sqrt(e) cos w, sqrt(e) sin w
+    s[i + 4] = 1e-5 * std::abs(theta[i]) + 1e-6;      // t_conj: a tiny fraction of P
+  }
+  for (std::size_t i = layout.planet_index(layout.n_planets); i < theta.size(); ++i)
+    s[i] = 1e-3 * std::abs(theta[i]) + 1e-3;
+  return s;
+}
+
+std::string options_text(const SamplerOptions& o) {
+  return fmt::format("walkers={} max_steps={} ess_target={} rhat_max={} min_tau_multiple={} seed={} "
+                     "stretch_a={} de_probability={} checkpoint_steps={}",
+                     o.walkers, o.max_steps, o.ess_target, o.rhat_max, o.min_tau_multiple, o.seed, o.stretch_a,
+                     o.de_probability, o.checkpoint_steps);
+}
+
+}  // namespace
+
+SamplingRun sample_project(const Project& project, const SamplingRunOptions& args) {
+  SamplingRun run;
+  const VelocityData data = project.load_velocities();
+  const TransitData transits = project.load_transits();
+  SearchProblem sp;
+  sp.data = data;
+  sp.transits = transits;
+  sp.search = project.search;
+  sp.model = project.model;
+  sp.priors = project.priors;
+
+  SamplerOptions opt;
+  opt.max_steps = project.sampler.max_steps;
+  opt.ess_target = project.sampler.ess_target;
+  opt.rhat_max = project.sampler.rhat_max;
+  opt.min_tau_multiple = project.sampler.min_tau_multiple;
+  opt.seed = project.sampler.seed;
+  opt.checkpoint_steps = project.sampler.checkpoint_steps;
+  opt.threads = args.threads;
+  if (args.max_steps > 0) opt.max_steps = args.max_steps;
+  if (args.seed >= 0) opt.seed = static_cast<std::uint64_t>(args.seed);
+
+  std::unique_ptr<ResultsFile> file;
+  ModelPriors priors;
+  SamplerState start;
+  std::vector<std::vector<double>> resume_rows;
+  ModelLayout& layout = run.layout;
+  if (args.resume) {
+    file = std::make_unique<ResultsFile>(args.out_path, ResultsFile::Mode::kReadWrite);
+    if (!file->exists("/project/text") || file->read_text("/project/text") != project.text)
+      throw InputError(fmt::format("{}: --resume needs the same project file the run started with ({} differs)",
+                                   args.out_path, project.path));
+    const FitProblem fp = make_fit_problem(sp, static_cast<int>(file->int_attribute("/chains", "n_planets")));
+    layout = fp.layout;
+    priors = fp.priors;
+    opt.walkers = file->chain_walkers();
+    opt.seed = std::stoull(file->string_attribute("/chains", "seed"));
+    if (args.seed >= 0 && static_cast<std::uint64_t>(args.seed) != opt.seed)
+      throw InputError(fmt::format("--seed = {}: a resumed run keeps its seed {}", args.seed, opt.seed));
+    start = file->read_checkpoint();
+    for (long s : diagnostic_steps(start.step, opt.diagnostic_rows)) resume_rows.push_back(file->read_chain_row(s));
+    run.names = file->read_strings("/parameters/names");
+    if (run.names.size() != layout.n_params())
+      throw InputError(fmt::format("{}: the stored run has {} parameters, the project's model {}", args.out_path,
+                                   run.names.size(), layout.n_params()));
+    if (start.step >= opt.max_steps)
+      throw InputError(fmt::format("--max-steps = {}: the run already has {} steps", opt.max_steps, start.step));
+  } else {
+    FitProblem fp;
+    const std::optional<int> n = args.n_planets ? args.n_planets : project.model.planets;
+    if (args.start != nullptr) {
+      fp = make_fit_problem(sp, args.start->layout.n_planets);
+      run.map = *args.start;
+    } else if (n) {
+      fp = make_fit_problem(sp, *n);
+      run.map = fit_map(fp);
+    } else {
+      SearchOptions so;
+      so.max_planets = project.search.max_planets;
+      so.fap_threshold = project.search.fap_threshold;
+      const SearchResult search = search_planets(sp, so);
+      fp = make_fit_problem(sp, search.selected_n_planets);
+      run.map = search.best();
+      run.note = fmt::format("The planet search selected {} planet(s) ([model] planets sets the number).",
+                             search.selected_n_planets);
+    }
+    if (!run.map.success()) {
+      run.failure = "the MAP fit that starts the sampler failed: " + run.map.message;
+      return run;
+    }
+    layout = fp.layout;
+    priors = fp.priors;
+    run.names = layout.names(data.instrument_names);
+    const int dim = static_cast<int>(layout.n_params());
+    opt.walkers = project.sampler.walkers > 0 ? project.sampler.walkers : std::max(32, 4 * dim);
+    if (args.walkers > 0) opt.walkers = args.walkers;
+    if (opt.walkers % 2) ++opt.walkers;
+    if (const std::string e = opt.Validate(); !e.empty()) throw InputError(e);
+    file = std::make_unique<ResultsFile>(args.out_path, ResultsFile::Mode::kCreate);
+    file->write_velocity_data(data);
+    file->write_project_text(project.text);
+    file->write_parameters(run.names, layout.units(), describe_priors(priors, layout, data.instrument_names));
+    file->write_vector("/map/theta", run.map.theta, "see /parameters/units", "MAP fit the walkers start around");
+    file->set_attribute("/map", "log_posterior", run.map.log_posterior);
+    file->set_attribute("/map", "log_likelihood", run.map.log_likelihood);
+    file->create_chains(opt.walkers, layout.n_params(), opt.seed, options_text(opt));
+    file->set_attribute("/chains", "n_planets", static_cast<long long>(layout.n_planets));
+    file->set_attribute("/chains", "transit_points", static_cast<long long>(transits.size()));
+    const JointLikelihood probe(data, layout, transits);
+    const LogDensity probe_density = [&](std::span<const double> th) {
+      const double lp = priors.log_density(th, layout.n_planets);
+      return std::isfinite(lp) ? lp + probe(th) : lp;
+    };
+    start.positions = initial_ball(probe_density, run.map.theta, ball_scale(layout, run.map.theta), opt.walkers, opt.seed);
+    if (start.positions.empty()) {
+      run.failure = "the MAP point has a non-finite posterior; cannot start the walkers";
+      return run;
+    }
+  }
+  if (const std::string e = opt.Validate(); !e.empty()) throw InputError(e);
+
+  const JointLikelihood likelihood(data, layout, transits);
+  const LogDensity log_post = [&](std::span<const double> th) {
+    const double lp = priors.log_density(th, layout.n_planets);
+    return std::isfinite(lp) ? lp + likelihood(th) : lp;
+  };
+  FileObserver observer(*file, opt.max_steps, args);
+  run.result = run_sampler(log_post, layout.n_params(), opt, start, &observer, args.resume ? &resume_rows : nullptr);
+  if (run.result.termination == SamplerTermination::kFailed) return run;
+  DerivedOptions dopt;
+  dopt.star_mass_msun = project.star.mass_msun;
+  dopt.star_mass_err_msun = project.star.mass_err_msun;
+  dopt.reference_epoch_bjd = data.reference_epoch_bjd;
+  dopt.seed = opt.seed;
+  if (run.result.termination != SamplerTermination::kInterrupted) write_posterior(*file, layout, run.names, run.result, dopt);
+  return run;
+}
+
+}  // namespace apsides
