@@ -623,6 +623,8 @@ namespace apsides {
 
 std::string CompareOptions::Validate() const {
   if (max_planets < 0 || max_planets > 9) return fmt::format("max_planets = {}: must be in 0..9", max_planets);
+  if (min_planets < 0 || min_planets > max_planets)
+    return fmt::format("min_planets = {}: must be in 0..max_planets ({})", min_planets, max_planets);
   if (!std::isfinite(bayes_threshold)) return fmt::format("bayes_threshold = {}: must be finite", bayes_threshold);
   return nested.Validate();
 }
@@ -634,7 +636,7 @@ CompareResult compare_planet_counts(const VelocityData& data, const ModelLayout&
   if (const std::string v = options.Validate(); !v.empty()) throw InputError("compare: " + v);
   const auto t_start = std::chrono::steady_clock::now();
   CompareResult res;
-  for (int k = 0; k <= options.max_planets; ++k) {
+  for (int k = options.min_planets; k <= options.max_planets; ++k) {
     ModelLayout layout = base_layout;
     layout.n_planets = k;
     const ModelPriors priors = priors_for(layout);
@@ -659,7 +661,7 @@ CompareResult compare_planet_counts(const VelocityData& data, const ModelLayout&
     row.aicc = aicc(row.ln_like_max, row.n_params, data.size());
     row.seconds = row.nested.seconds;
     row.likelihood_calls = row.nested.likelihood_calls;
-    if (k > 0) {
+    if (!res.rows.empty()) {
       const ComparisonRow& prev = res.rows.back();
       row.ln_bayes_vs_previous = row.ln_evidence - prev.ln_evidence;
       row.ln_bayes_err = std::hypot(row.ln_evidence_err, prev.ln_evidence_err);
@@ -674,11 +676,11 @@ CompareResult compare_planet_counts(const VelocityData& data, const ModelLayout&
     }
     res.rows.push_back(std::move(row));
   }
-  res.selected_n_planets = 0;
+  res.selected_n_planets = options.min_planets;
   for (std::size_t k = 1; k < res.rows.size(); ++k) {
     if (res.rows[k].ln_bayes_vs_previous > options.bayes_threshold &&
         res.rows[k].nested.termination == NestedTermination::kConverged)
-      res.selected_n_planets = static_cast<int>(k);
+      res.selected_n_planets = res.rows[k].n_planets;
   }
   res.selection_rule = fmt::format(
       "the largest k whose ln B(k vs k-1) > {:g} (Kass & Raftery 1995: "

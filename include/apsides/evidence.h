@@ -189,7 +189,11 @@ double bic(double ln_like_max, int n_params, std::size_t n_points);
 double aicc(double ln_like_max, int n_params, std::size_t n_points);
 
 struct CompareOptions {
-  int max_planets = 2;          // compare 0..max_planets Keplerians
+  int max_planets = 2;          // compare min_planets..max_planets Keplerians
+  // Smallest model compared (>= 0). `analyze` compares only the neighbours of the planet
+  // search's answer (k - 1, k, k + 1) to keep the run short; it is then the baseline
+  // selected when no larger model passes the threshold.
+  int min_planets = 0;
   NestedOptions nested;         // sampler settings for every k
   // Selection rule: the largest k whose ln B against k - 1 exceeds this (a smaller step
   // may be weaker: two planets of similar amplitude can each explain little alone). Kass &

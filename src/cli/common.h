@@ -31,6 +31,7 @@ Command register_sample(CLI::App& app);
 Command register_ephemeris(CLI::App& app);
 Command register_compare(CLI::App& app);
 Command register_scan(CLI::App& app);
+Command register_analyze(CLI::App& app);
 
 // Writes text to `path` atomically (temporary file + rename): never half-written.
 void write_file_atomic(const std::string& path, const std::string& content);

@@ -20,6 +20,7 @@ int main(int argc, char** argv) {
   app.require_subcommand(1);
   std::vector<apsides::cli::Command> commands;
   // In the order of the job: look, fit, sample, compare, summarise; transits; make data.
+  commands.push_back(apsides::cli::register_analyze(app));
   commands.push_back(apsides::cli::register_scan(app));
   commands.push_back(apsides::cli::register_fit(app));
   commands.push_back(apsides::cli::register_sample(app));
