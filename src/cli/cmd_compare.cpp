@@ -5,6 +5,7 @@
 #include <filesystem>
 #include <memory>
 
+#include "apsides/analysis.h"
 #include "apsides/error.h"
 #include "apsides/evidence.h"
 #include "apsides/model_priors.h"
@@ -62,54 +63,8 @@ void write_results(const std::string& path, const Project& project, const Veloci
     file.write_velocity_data(data);
     file.write_project_text(project.text);
   }
-  std::vector<double> col(r.rows.size());
-  auto column = [&](auto get) {
-    for (std::size_t i = 0; i < r.rows.size(); ++i) col[i] = get(r.rows[i]);
-    return std::span<const double>(col);
-  };
-  std::vector<long long> n_planets;
-  for (const auto& row : r.rows) n_planets.push_back(row.n_planets);
-  file.write_ints("/comparison/n_planets", n_planets, "number of Keplerians of each model");
-  file.write_vector("/comparison/ln_evidence", column([](const ComparisonRow& x) { return x.ln_evidence; }), "nats",
-                    "ln Z by nested sampling");
-  file.write_vector("/comparison/ln_evidence_err", column([](const ComparisonRow& x) { return x.ln_evidence_err; }),
-                    "nats", "sqrt(H / n_live) (Skilling 2006)");
-  file.write_vector("/comparison/ln_like_max", column([](const ComparisonRow& x) { return x.ln_like_max; }), "nats",
-                    "highest ln L visited by nested sampling");
-  file.write_vector("/comparison/bic", column([](const ComparisonRow& x) { return x.bic; }), "", "k ln n - 2 ln L");
-  file.write_vector("/comparison/aicc", column([](const ComparisonRow& x) { return x.aicc; }), "",
-                    "2k - 2 ln L + 2k(k+1)/(n-k-1)");
-  file.write_vector("/comparison/information_nats", column([](const ComparisonRow& x) { return x.information_nats; }),
-                    "nats", "information H (Kullback-Leibler divergence prior -> posterior)");
-  file.set_attribute("/comparison", "selected_n_planets", static_cast<long long>(r.selected_n_planets));
-  file.set_attribute("/comparison", "selection_rule", r.selection_rule);
-  for (const auto& row : r.rows) {
-    const std::string g = fmt::format("/nested_samples/k{}", row.n_planets);
-    const auto& s = row.nested.samples;
-    const std::size_t dim = s.empty() ? 0 : s.front().theta.size();
-    std::vector<double> theta, ln_like, ln_w, ln_x;
-    theta.reserve(s.size() * dim);
-    for (const auto& x : s) {
-      theta.insert(theta.end(), x.theta.begin(), x.theta.end());
-      ln_like.push_back(x.ln_like);
-      ln_w.push_back(x.ln_weight);
-      ln_x.push_back(x.ln_prior_volume);
-    }
-    file.write_matrix(g + "/theta", theta, s.size(), dim, "parameter units (see names)",
-                      "dead points then final live points, in parameter order");
-    file.write_strings(g + "/names", row.nested.names, "parameter names (theta columns)");
-    file.write_vector(g + "/ln_like", ln_like, "nats", "ln L of each point");
-    file.write_vector(g + "/ln_weight", ln_w, "nats", "normalised posterior weight, sum exp = 1");
-    file.write_vector(g + "/ln_prior_volume", ln_x, "nats", "expected ln X at removal");
-    file.set_attribute(g, "ln_evidence", row.ln_evidence);
-    file.set_attribute(g, "ln_evidence_err", row.ln_evidence_err);
-    file.set_attribute(g, "live_points", static_cast<long long>(row.nested.live_points));
-    file.set_attribute(g, "termination", to_string(row.nested.termination));
-    file.set_attribute(g, "ordering", row.ordering_note);
-  }
-  file.flush();
+  write_comparison(file, r);
 }
-
 }  // namespace
 
 Command register_compare(CLI::App& app) {
