@@ -402,6 +402,7 @@ AnalysisOutcome run_analysis(const Project& project, const AnalysisOptions& opti
 
   const VelocityData data = project.load_velocities();
   const TransitData transits = project.load_transits();
+  for (const auto& w : data.warnings) stage("warning", w);
   std::vector<std::string> report_figures;
 
   // 1. Scan.
@@ -426,16 +427,7 @@ AnalysisOutcome run_analysis(const Project& project, const AnalysisOptions& opti
   }
 
   // 2. Planet search, with the residual periodogram of each step.
-  SearchProblem sp;
-  sp.data = data;
-  sp.transits = transits;
-  sp.search = project.search;
-  sp.model = project.model;
-  sp.priors = project.priors;
-  SearchOptions so;
-  so.max_planets = project.search.max_planets;
-  so.fap_threshold = project.search.fap_threshold;
-  const SearchResult search = search_planets(sp, so);
+  const SearchResult search = search_planets(search_problem(project, data, transits), search_options(project));
   stage("search", search.BriefReport());
   std::vector<PeriodogramPanel> step_panels;
   for (std::size_t k = 0; k < search.fits.size() && k < 7; ++k) {

@@ -936,4 +936,21 @@ SearchResult search_planets(const SearchProblem& sp, const SearchOptions& opt) {
   return out;
 }
 
+SearchProblem search_problem(const Project& project, const VelocityData& data, const TransitData& transits) {
+  SearchProblem sp;
+  sp.data = data;
+  sp.transits = transits;
+  sp.search = project.search;
+  sp.model = project.model;
+  sp.priors = project.priors;
+  return sp;
+}
+
+SearchOptions search_options(const Project& project) {
+  SearchOptions so;
+  so.max_planets = project.search.max_planets;
+  so.fap_threshold = project.search.fap_threshold;
+  return so;
+}
+
 }  // namespace apsides

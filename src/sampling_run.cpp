@@ -106,12 +106,7 @@ SamplingRun sample_project(const Project& project, const SamplingRunOptions& arg
   SamplingRun run;
   const VelocityData data = project.load_velocities();
   const TransitData transits = project.load_transits();
-  SearchProblem sp;
-  sp.data = data;
-  sp.transits = transits;
-  sp.search = project.search;
-  sp.model = project.model;
-  sp.priors = project.priors;
+  const SearchProblem sp = search_problem(project, data, transits);
 
   SamplerOptions opt;
   opt.max_steps = project.sampler.max_steps;
@@ -159,10 +154,7 @@ SamplingRun sample_project(const Project& project, const SamplingRunOptions& arg
       fp = make_fit_problem(sp, *n);
       run.map = fit_map(fp);
     } else {
-      SearchOptions so;
-      so.max_planets = project.search.max_planets;
-      so.fap_threshold = project.search.fap_threshold;
-      const SearchResult search = search_planets(sp, so);
+      const SearchResult search = search_planets(sp, search_options(project));
       fp = make_fit_problem(sp, search.selected_n_planets);
       run.map = search.best();
       run.note = fmt::format("The planet search selected {} planet(s) ([model] planets sets the number).",

@@ -187,6 +187,11 @@ struct SearchProblem {
   std::vector<PriorSpec> priors;   // [priors] overrides
 };
 
+// The search problem of a project (its data, transit times, [search], [model], [priors]),
+// and the search options its [search] table sets.
+SearchProblem search_problem(const Project& project, const VelocityData& data, const TransitData& transits);
+SearchOptions search_options(const Project& project);
+
 // Builds the FitProblem for `n_planets` planets from a SearchProblem.
 FitProblem make_fit_problem(const SearchProblem& problem, int n_planets);
 

@@ -1,5 +1,6 @@
 // Posterior evaluations per second of the ensemble sampler: 2 planets, 2 instruments,
 // N = 200 velocities, 32 walkers, both cores (issue 5 target: >= 300 000 per second).
+#include <memory>
 #include <benchmark/benchmark.h>
 
 #include <cmath>
