@@ -4,7 +4,6 @@
 
 #include <algorithm>
 #include <atomic>
-#include <barrier>
 #include <chrono>
 #include <cmath>
 #include <deque>
@@ -22,45 +21,81 @@ std::uint64_t splitmix64(std::uint64_t x) {
   return x ^ (x >> 31);
 }
 
-// A fixed pool of threads that run one job over a range of walkers, in a static split.
-// The main thread takes part as worker 0. Which thread moves which walker never affects
-// the result (each walker's random numbers are its own).
+// A fixed pool of threads that share out one job over a range of walkers. Items are
+// claimed one at a time from a shared counter, and the calling thread takes part, so a
+// half-step never waits for a helper that the OS has not scheduled yet: whoever is
+// running does the work (a half-step is only ~16 evaluations of a few microseconds, too
+// short for a condition-variable or barrier handoff on a busy machine). Which thread moves
+// which walker never affects the result (each walker's random numbers are its own, and a
+// walker's move writes only its own row).
 class WorkerPool {
  public:
-  explicit WorkerPool(int threads)
-      : n_(std::max(1, threads)), start_(n_), done_(n_) {
-    for (int t = 1; t < n_; ++t) workers_.emplace_back([this, t] { loop(t); });
+  explicit WorkerPool(int threads) : n_(std::max(1, threads)) {
+    for (int t = 1; t < n_; ++t) workers_.emplace_back([this] { loop(); });
   }
+  WorkerPool(const WorkerPool&) = delete;
+  WorkerPool& operator=(const WorkerPool&) = delete;
   ~WorkerPool() {
-    quit_ = true;
-    if (n_ > 1) start_.arrive_and_wait();
+    quit_.store(true);
+    generation_.fetch_add(1);
+    generation_.notify_all();
     for (auto& w : workers_) w.join();
   }
   void run(int count, const std::function<void(int)>& job) {
+    if (n_ == 1 || count <= 1 || count > 0xffff) {
+      for (int i = 0; i < count; ++i) job(i);
+      return;
+    }
+    // Every item of the previous run is done, so no helper touches job_ or done_ now.
     job_ = &job;
-    count_ = count;
-    if (n_ > 1) start_.arrive_and_wait();
-    work(0);
-    if (n_ > 1) done_.arrive_and_wait();
+    done_.store(0, std::memory_order_relaxed);
+    const std::uint32_t gen = generation_.load(std::memory_order_relaxed) + 1;
+    claim_.store(pack(gen, count, 0), std::memory_order_release);
+    generation_.store(gen, std::memory_order_release);
+    generation_.notify_all();
+    work(gen);
+    for (int spins = 0; done_.load(std::memory_order_acquire) != count; ++spins)
+      if (spins > 64) std::this_thread::yield();
   }
 
  private:
-  void loop(int t) {
+  // Claim word: generation (32 bits) | count (16 bits) | next index (16 bits), so a claim
+  // made by a late helper can never take an item of a later run.
+  static std::uint64_t pack(std::uint32_t gen, int count, int index) {
+    return (static_cast<std::uint64_t>(gen) << 32) | (static_cast<std::uint64_t>(count) << 16) |
+           static_cast<std::uint64_t>(index);
+  }
+  void work(std::uint32_t gen) {
+    std::uint64_t v = claim_.load(std::memory_order_acquire);
     for (;;) {
-      start_.arrive_and_wait();
-      if (quit_) return;
-      work(t);
-      done_.arrive_and_wait();
+      const int count = static_cast<int>((v >> 16) & 0xffff), index = static_cast<int>(v & 0xffff);
+      if (static_cast<std::uint32_t>(v >> 32) != gen || index >= count) return;
+      if (!claim_.compare_exchange_weak(v, v + 1, std::memory_order_acq_rel, std::memory_order_acquire)) continue;
+      (*job_)(index);
+      done_.fetch_add(1, std::memory_order_release);
+      v = claim_.load(std::memory_order_acquire);
     }
   }
-  void work(int t) {
-    for (int i = t; i < count_; i += n_) (*job_)(i);
+  void loop() {
+    std::uint32_t seen = 0;
+    for (;;) {
+      std::uint32_t gen = generation_.load(std::memory_order_acquire);
+      for (int spins = 0; gen == seen && spins < 2000; ++spins) gen = generation_.load(std::memory_order_acquire);
+      if (gen == seen) {
+        generation_.wait(seen, std::memory_order_acquire);
+        continue;
+      }
+      if (quit_.load()) return;
+      seen = gen;
+      work(gen);
+    }
   }
   int n_;
-  std::barrier<> start_, done_;
   std::vector<std::thread> workers_;
   const std::function<void(int)>* job_ = nullptr;
-  int count_ = 0;
+  std::atomic<std::uint64_t> claim_{0};
+  std::atomic<std::uint32_t> generation_{0};
+  std::atomic<int> done_{0};
   std::atomic<bool> quit_{false};
 };
 
