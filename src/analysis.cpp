@@ -6,6 +6,7 @@
 #include <cmath>
 #include <filesystem>
 #include <fstream>
+#include <functional>
 #include <nlohmann/json.hpp>
 #include <sstream>
 
@@ -165,6 +166,7 @@ void write_comparison(ResultsFile& file, const CompareResult& r) {
   file.set_attribute("/comparison", "selected_n_planets", static_cast<long long>(r.selected_n_planets));
   file.set_attribute("/comparison", "selection_rule", r.selection_rule);
   for (const auto& row : r.rows) {
+    if (row.nested.samples.empty()) continue;  // e.g. a comparison reused from the cache
     const std::string g = fmt::format("/nested_samples/k{}", row.n_planets);
     const auto& s = row.nested.samples;
     const std::size_t dim = s.empty() ? 0 : s.front().theta.size();
@@ -467,10 +469,68 @@ AnalysisOutcome run_analysis(const Project& project, const AnalysisOptions& opti
     auto priors_for = [&](const ModelLayout& layout) {
       return build_priors(data, layout, project.search, project.model, project.priors, project.search.max_planets);
     };
-    comparison = compare_planet_counts(data, base, priors_for, copt, [&](int k, const std::string& s) {
-      stage("compare", fmt::format("nested sampling, {}", s));
-      (void)k;
-    });
+    // The comparison is the slow stage: cache it (keyed by the project text and the
+    // options) so that --resume does not redo it.
+    const std::string key = fmt::format("{}|{}|{}|{}|{}|{}", std::hash<std::string>{}(project.text), copt.min_planets,
+                                        copt.max_planets, copt.nested.live_points, copt.nested.seed, copt.bayes_threshold);
+    bool cached = false;
+    if (options.resume && fs::exists(compare_cache)) {
+      try {
+        std::ifstream in(compare_cache);
+        const json c = json::parse(in);
+        if (c.at("key").get<std::string>() == key) {
+          comparison.selected_n_planets = c.at("selected_n_planets");
+          comparison.selection_rule = c.at("selection_rule");
+          comparison.notes = c.at("notes").get<std::vector<std::string>>();
+          comparison.message = c.at("message");
+          for (const auto& r : c.at("rows")) {
+            ComparisonRow row;
+            row.n_planets = r.at("n_planets");
+            row.n_params = r.at("n_params");
+            auto num = [&](const char* k) { return r.at(k).is_null() ? std::nan("") : r.at(k).get<double>(); };
+            row.ln_evidence = num("ln_evidence");
+            row.ln_evidence_err = num("ln_evidence_err");
+            row.ln_like_max = num("ln_like_max");
+            row.bic = num("bic");
+            row.aicc = num("aicc");
+            row.information_nats = num("information_nats");
+            row.ln_bayes_vs_previous = num("ln_bayes_vs_previous");
+            row.ln_bayes_err = num("ln_bayes_err");
+            row.bayes_wording = r.at("bayes_wording");
+            row.ordering_note = r.at("ordering");
+            comparison.rows.push_back(row);
+          }
+          cached = true;
+          stage("compare", "reusing the comparison in " + compare_cache.string());
+        }
+      } catch (const std::exception&) {
+        comparison = CompareResult{};
+        cached = false;
+      }
+    }
+    if (!cached) {
+      comparison = compare_planet_counts(data, base, priors_for, copt, [&](int k, const std::string& s) {
+        stage("compare", fmt::format("nested sampling, {}", s));
+        (void)k;
+      });
+      json c;
+      c["key"] = key;
+      c["selected_n_planets"] = comparison.selected_n_planets;
+      c["selection_rule"] = comparison.selection_rule;
+      c["notes"] = comparison.notes;
+      c["message"] = comparison.message;
+      c["rows"] = json::array();
+      for (const auto& r : comparison.rows) {
+        c["rows"].push_back({{"n_planets", r.n_planets}, {"n_params", r.n_params}, {"ln_evidence", finite_or_null(r.ln_evidence)},
+                             {"ln_evidence_err", finite_or_null(r.ln_evidence_err)}, {"ln_like_max", finite_or_null(r.ln_like_max)},
+                             {"bic", finite_or_null(r.bic)}, {"aicc", finite_or_null(r.aicc)},
+                             {"information_nats", finite_or_null(r.information_nats)},
+                             {"ln_bayes_vs_previous", finite_or_null(r.ln_bayes_vs_previous)},
+                             {"ln_bayes_err", finite_or_null(r.ln_bayes_err)}, {"bayes_wording", r.bayes_wording},
+                             {"ordering", r.ordering_note}});
+      }
+      write_text_atomic(compare_cache.string(), c.dump(1) + "\n");
+    }
     n_planets = comparison.selected_n_planets;
     const ComparisonRow* sel = nullptr;
     const ComparisonRow* next = nullptr;
@@ -517,7 +577,7 @@ AnalysisOutcome run_analysis(const Project& project, const AnalysisOptions& opti
     stage("sample", run.result.BriefReport());
   }
   file = std::make_unique<ResultsFile>(out.results_path, ResultsFile::Mode::kReadWrite);
-  if (!comparison.rows.empty()) write_comparison(*file, comparison);
+  if (!comparison.rows.empty() && !(reuse && file->exists("/comparison/n_planets"))) write_comparison(*file, comparison);
   {
     std::vector<double> f = scan.frequency_per_day;
     file->write_vector("/periodograms/velocities/frequency_per_d", f, "1/d", "frequency grid");

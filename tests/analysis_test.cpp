@@ -98,6 +98,15 @@ TEST_SUITE("analysis") {
                                "## Priors", "## Cautions", "minimum", "activity", "alias", "priors"})
       CHECK(md.find(needle) != std::string::npos);
 
+    // --resume reuses the finished comparison and sampling run, and rewrites the same summary.
+    const std::string before = read_all(dir + "/summary.json");
+    const auto again = apsides::test::run_command(apsides::test::apsides_binary() + " analyze " + project + " --out " + dir + " --resume");
+    INFO(again.output);
+    CHECK(again.status == 0);
+    CHECK(again.output.find("reusing the comparison") != std::string::npos);
+    CHECK(again.output.find("reusing the finished run") != std::string::npos);
+    CHECK(read_all(dir + "/summary.json") == before);
+
     // Outside reader: the results file opens in h5py (Debian python3-h5py).
     const auto py = apsides::test::run_python("import h5py\nf = h5py.File('" + dir + "/results.h5', 'r')\n"
                                               "print(sorted(k for k in f.keys()))\n");
