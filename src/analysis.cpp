@@ -712,6 +712,9 @@ AnalysisOutcome run_analysis(const Project& project, const AnalysisOptions& opti
                         r.bayes_wording.empty() ? "—" : r.bayes_wording);
     }
     md << fmt::format("\nRule: {}. Models compared: the search's answer and its neighbours.\n\n", comparison.selection_rule);
+    if (transits.size() > 0)
+      md << "The evidence uses the velocities only; ln L and BIC in the search table above also include the transit times, "
+            "so the two tables' ln L differ.\n\n";
     for (const auto& n : comparison.notes)
       if (n.rfind("prior: ", 0) != 0) md << "- " << n << "\n";
     md << "\n";
