@@ -28,10 +28,6 @@ struct FitArgs {
   CommonOptions common;
 };
 
-bool is_project(const std::string& f) {
-  return std::filesystem::path(f).extension() == ".toml";
-}
-
 std::string fmt_or_dash(double x, const char* spec) {
   return std::isfinite(x) ? fmt::format(fmt::runtime(spec), x) : "-";
 }
@@ -145,9 +141,10 @@ Command register_fit(CLI::App& app) {
   return {cmd, [args]() -> int {
             SearchProblem sp;
             std::optional<double> mass;
-            if (args->files.size() == 1 && is_project(args->files[0])) {
+            if (args->files.size() == 1 && is_project_file(args->files[0])) {
               const Project pr = load_project(args->files[0]);
               sp.data = pr.load_velocities();
+              print_warnings(sp.data);
               if (!pr.transits.empty()) sp.transits = pr.load_transits();
               sp.search = pr.search;
               sp.model = pr.model;
@@ -155,14 +152,7 @@ Command register_fit(CLI::App& app) {
               if (pr.star.mass_msun) mass = *pr.star.mass_msun;
               if (args->planets < 0 && !args->search && pr.model.planets) args->planets = *pr.model.planets;
             } else {
-              std::vector<VelocityFileOptions> fo(args->files.size());
-              for (auto& o : fo) {
-                o.instrument = args->instrument;
-                o.unit = parse_velocity_unit(args->velocity_unit, "--velocity-unit");
-              }
-              for (const auto& f : args->files)
-                if (is_project(f)) throw InputError(fmt::format("{}: a project file must be the only FILE", f));
-              sp.data = load_velocities(args->files, fo);
+              sp.data = load_velocity_arguments(args->files, args->instrument, args->velocity_unit);
             }
             if (args->star_mass > 0.0) mass = args->star_mass;
             if (!args->trend.empty()) sp.model.trend = parse_trend(args->trend, "--trend");

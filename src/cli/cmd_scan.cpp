@@ -25,10 +25,6 @@ struct ScanArgs {
   CommonOptions common;
 };
 
-bool looks_like_project(const std::string& f) {
-  return f.size() > 5 && f.compare(f.size() - 5, 5, ".toml") == 0;
-}
-
 nlohmann::json peak_json(const Peak& p, const std::vector<Peak>& peaks, bool window) {
   nlohmann::json j = {{"period_d", p.period_days}, {"frequency_per_d", p.frequency_per_day}, {"power", p.power}};
   if (window) return j;
@@ -79,17 +75,11 @@ Command register_scan(CLI::App& app) {
   add_common_options(cmd, args->common);
   return {cmd, [args]() -> int {
             VelocityData data;
-            if (args->files.size() == 1 && looks_like_project(args->files[0])) {
+            if (args->files.size() == 1 && is_project_file(args->files[0])) {
               data = load_project(args->files[0]).load_velocities();
+              print_warnings(data);
             } else {
-              std::vector<VelocityFileOptions> fo(args->files.size());
-              for (auto& o : fo) {
-                o.instrument = args->instrument;
-                o.unit = parse_velocity_unit(args->velocity_unit, "--velocity-unit");
-              }
-              for (const auto& f : args->files)
-                if (looks_like_project(f)) throw InputError(fmt::format("{}: a project file must be the only FILE", f));
-              data = load_velocities(args->files, fo);
+              data = load_velocity_arguments(args->files, args->instrument, args->velocity_unit);
             }
             PeriodogramOptions opt = args->options;
             opt.normalization = parse_normalization(args->normalization, "--normalization");

@@ -18,6 +18,26 @@ void add_common_options(CLI::App* cmd, CommonOptions& opts) {
   cmd->add_flag("-q,--quiet", opts.quiet, "No progress output on stderr");
 }
 
+bool is_project_file(const std::string& path) { return fs::path(path).extension() == ".toml"; }
+
+void print_warnings(const VelocityData& data) {
+  for (const auto& w : data.warnings) fmt::print(stderr, "apsides: warning: {}\n", w);
+}
+
+VelocityData load_velocity_arguments(const std::vector<std::string>& files, const std::string& instrument,
+                                     const std::string& velocity_unit) {
+  std::vector<VelocityFileOptions> fo(files.size());
+  for (auto& o : fo) {
+    o.instrument = instrument;
+    o.unit = parse_velocity_unit(velocity_unit, "--velocity-unit");
+  }
+  for (const auto& f : files)
+    if (is_project_file(f)) throw InputError(fmt::format("{}: a project file must be the only FILE", f));
+  VelocityData data = load_velocities(files, fo);
+  print_warnings(data);
+  return data;
+}
+
 void write_file_atomic(const std::string& path, const std::string& content) {
   const fs::path target(path);
   std::error_code ec;

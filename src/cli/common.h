@@ -8,6 +8,8 @@
 #include <string>
 #include <vector>
 
+#include "apsides/data.h"
+
 namespace apsides::cli {
 
 // Options every command takes.
@@ -32,6 +34,16 @@ Command register_ephemeris(CLI::App& app);
 Command register_compare(CLI::App& app);
 Command register_scan(CLI::App& app);
 Command register_analyze(CLI::App& app);
+
+// True when a FILE argument is a project file (ends in .toml).
+bool is_project_file(const std::string& path);
+// Velocities named on the command line: several data files (each read with the given
+// --instrument label and --velocity-unit), never mixed with a project file. Prints the
+// data's warnings (e.g. a unit that looks wrong) to stderr.
+VelocityData load_velocity_arguments(const std::vector<std::string>& files, const std::string& instrument,
+                                     const std::string& velocity_unit);
+// Prints data warnings to stderr, one line each.
+void print_warnings(const VelocityData& data);
 
 // Writes text to `path` atomically (temporary file + rename): never half-written.
 void write_file_atomic(const std::string& path, const std::string& content);
