@@ -43,7 +43,7 @@ void sums_to_power(const GlsData& d, const double* yc, const double* ys, const d
 // Exact engine: power (and window if non-null) on f0 + k df, k < nf.
 void exact_power(const GlsData& d, double f0, double df, std::size_t nf, int threads,
                  double* power, double* window);
-// Fast engine (extirpolation + FFTW).
+// Fast engine (spreading onto a regular grid + FFTW, periodogram_fast.cpp).
 void fast_power(const GlsData& d, double f0, double df, std::size_t nf, int threads,
                 double* power, double* window);
 // Direct power at one frequency (any f), for peak refinement and tests.
