@@ -23,7 +23,7 @@
 //
 // Numerics. The exact mode sums over every point at every frequency, stepping cos/sin
 // across the grid with a rotation recurrence (per point, per 8 frequencies) and
-// re-anchoring on a directly computed sin/cos every 1024 frequencies (error <= 1e-12 in
+// re-anchoring on a directly computed sin/cos every 4096 frequencies (error <= 1e-12 in
 // the sums, checked by tests). Times are centred and the velocities weighted-mean
 // centred before summing. Work is split over threads by blocks of frequencies; the result
 // does not depend on the number of threads. The fast mode spreads the points onto a
