@@ -22,12 +22,16 @@
 // call); FFTW's new-array execute lets concurrent calls and threads share one plan. The
 // 2 + m sums (m instruments) are independent tasks claimed by the worker threads.
 #include <fftw3.h>
+#if defined(__linux__)
+#include <sys/mman.h>
+#endif
 
 #include <algorithm>
 #include <atomic>
 #include <boost/math/quadrature/gauss.hpp>
 #include <cmath>
 #include <complex>
+#include <cstdlib>
 #include <map>
 #include <memory>
 #include <mutex>
@@ -100,13 +104,54 @@ std::vector<double> inverse_kernel_transform(std::size_t L, std::size_t count) {
   return out;
 }
 
+// Large buffers on 2 MB boundaries, with transparent huge pages requested: a first call
+// on a big grid otherwise spends most of its time in page faults (tens of thousands of
+// 4 kB pages; each costs microseconds, more under a hypervisor).
+void* big_alloc(std::size_t bytes) {
+  constexpr std::size_t kHuge = std::size_t{2} << 20;
+  if (bytes < kHuge) return fftw_malloc(bytes);
+  const std::size_t rounded = (bytes + kHuge - 1) / kHuge * kHuge;
+  void* p = std::aligned_alloc(kHuge, rounded);
+  if (p == nullptr) throw std::bad_alloc();
+#if defined(__linux__) && defined(MADV_HUGEPAGE)
+  madvise(p, rounded, MADV_HUGEPAGE);  // a hint; failure is harmless
+#endif
+  return p;
+}
+void big_free(void* p, std::size_t bytes) {
+  if (p == nullptr) return;
+  if (bytes < (std::size_t{2} << 20))
+    fftw_free(p);
+  else
+    std::free(p);
+}
+
 struct FftBuffer {
   fftw_complex* data = nullptr;
   std::size_t size = 0;
-  explicit FftBuffer(std::size_t n) : data(fftw_alloc_complex(n)), size(n) {}
-  ~FftBuffer() { fftw_free(data); }
+  explicit FftBuffer(std::size_t n)
+      : data(static_cast<fftw_complex*>(big_alloc(n * sizeof(fftw_complex)))), size(n) {}
+  ~FftBuffer() { big_free(data, size * sizeof(fftw_complex)); }
   FftBuffer(const FftBuffer&) = delete;
   FftBuffer& operator=(const FftBuffer&) = delete;
+};
+
+// The per-frequency sums of one call (grown, never shrunk).
+struct SumsBuffer {
+  double* data = nullptr;
+  std::size_t size = 0;
+  void reserve(std::size_t n) {
+    if (n <= size) return;
+    big_free(data, size * sizeof(double));
+    data = nullptr;
+    size = 0;
+    data = static_cast<double*>(big_alloc(n * sizeof(double)));
+    size = n;
+  }
+  SumsBuffer() = default;
+  ~SumsBuffer() { big_free(data, size * sizeof(double)); }
+  SumsBuffer(const SumsBuffer&) = delete;
+  SumsBuffer& operator=(const SumsBuffer&) = delete;
 };
 
 // Plan and kernel transform for one (L, number of offsets).
@@ -130,8 +175,9 @@ class FftCache {
       setups_.clear();
     }
     auto s = std::make_unique<Setup>();
-    FftBuffer probe(L);
-    s->plan = fftw_plan_dft_1d(static_cast<int>(L), probe.data, probe.data, FFTW_BACKWARD, FFTW_ESTIMATE);
+    fftw_complex* probe = fftw_alloc_complex(L);
+    s->plan = fftw_plan_dft_1d(static_cast<int>(L), probe, probe, FFTW_BACKWARD, FFTW_ESTIMATE);
+    fftw_free(probe);
     s->inv_phi = inverse_kernel_transform(L, offsets);
     return *(setups_[key] = std::move(s));
   }
@@ -152,19 +198,20 @@ class FftCache {
     // Keep at most 8 buffers, the most recently returned.
     if (free_.size() > 8) free_.erase(free_.begin());
   }
-  std::unique_ptr<std::vector<double>> take_sums(std::size_t size) {
-    std::lock_guard<std::mutex> lock(mutex_);
-    std::unique_ptr<std::vector<double>> v;
-    if (!sums_.empty()) {
-      v = std::move(sums_.back());
-      sums_.pop_back();
-    } else {
-      v = std::make_unique<std::vector<double>>();
+  std::unique_ptr<SumsBuffer> take_sums(std::size_t size) {
+    std::unique_ptr<SumsBuffer> v;
+    {
+      std::lock_guard<std::mutex> lock(mutex_);
+      if (!sums_.empty()) {
+        v = std::move(sums_.back());
+        sums_.pop_back();
+      }
     }
-    if (v->size() < size) v->resize(size);
+    if (!v) v = std::make_unique<SumsBuffer>();
+    v->reserve(size);
     return v;
   }
-  void give_sums(std::unique_ptr<std::vector<double>> v) {
+  void give_sums(std::unique_ptr<SumsBuffer> v) {
     std::lock_guard<std::mutex> lock(mutex_);
     if (sums_.size() < 4) sums_.push_back(std::move(v));
   }
@@ -173,7 +220,7 @@ class FftCache {
   std::mutex mutex_;
   std::map<std::pair<std::size_t, std::size_t>, std::unique_ptr<Setup>> setups_;
   std::vector<std::unique_ptr<FftBuffer>> free_;
-  std::vector<std::unique_ptr<std::vector<double>>> sums_;
+  std::vector<std::unique_ptr<SumsBuffer>> sums_;
 };
 
 FftCache& cache() {
@@ -226,7 +273,7 @@ void fast_power(const GlsData& d, double f0, double df, std::size_t nf, int thre
   const std::size_t n_tasks = 2 + m;
   const int nt = std::max(1, std::min<int>(resolve_threads(threads), static_cast<int>(n_tasks)));
   auto sums_holder = fcache.take_sums((4 + 2 * m) * nf);
-  double* sums = sums_holder->data();
+  double* sums = sums_holder->data;
   auto row = [&](std::size_t q) { return sums + q * nf; };
 
   auto run_task = [&](std::size_t task, fftw_complex* buf) {
