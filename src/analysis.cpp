@@ -462,16 +462,21 @@ AnalysisOutcome run_analysis(const Project& project, const AnalysisOptions& opti
     copt.nested.seed = project.evidence.seed;
     copt.nested.threads = options.threads;
     copt.bayes_threshold = project.evidence.bayes_threshold;
+    // The search's periods (every step) and the peak that stopped it: mode-jump targets.
+    for (const FitResult& f : search.fits)
+      for (int j = 0; j < f.layout.n_planets; ++j) copt.period_hints_days.push_back(f.theta[f.layout.planet_index(j)]);
+    if (std::isfinite(search.final_peak_period_days)) copt.period_hints_days.push_back(search.final_peak_period_days);
     ModelLayout base;
     base.n_instruments = static_cast<int>(data.n_instruments());
     base.trend = project.model.trend;
     base.fit_jitter = project.model.fit_jitter;
     auto priors_for = [&](const ModelLayout& layout) {
-      return build_priors(data, layout, project.search, project.model, project.priors, project.search.max_planets);
+      return build_priors(data, layout, project.search, project.model, project.priors, project.search.max_planets,
+                          &project.star);
     };
     // The comparison is the slow stage: cache it (keyed by the project text and the
     // options) so that --resume does not redo it.
-    const std::string key = fmt::format("{}|{}|{}|{}|{}|{}", std::hash<std::string>{}(project.text), copt.min_planets,
+    const std::string key = fmt::format("v2|{}|{}|{}|{}|{}|{}", std::hash<std::string>{}(project.text), copt.min_planets,
                                         copt.max_planets, copt.nested.live_points, copt.nested.seed, copt.bayes_threshold);
     bool cached = false;
     if (options.resume && fs::exists(compare_cache)) {
@@ -512,7 +517,7 @@ AnalysisOutcome run_analysis(const Project& project, const AnalysisOptions& opti
       comparison = compare_planet_counts(data, base, priors_for, copt, [&](int k, const std::string& s) {
         stage("compare", fmt::format("nested sampling, {}", s));
         (void)k;
-      });
+      }, &transits);
       json c;
       c["key"] = key;
       c["selected_n_planets"] = comparison.selected_n_planets;
@@ -712,9 +717,6 @@ AnalysisOutcome run_analysis(const Project& project, const AnalysisOptions& opti
                         r.bayes_wording.empty() ? "—" : r.bayes_wording);
     }
     md << fmt::format("\nRule: {}. Models compared: the search's answer and its neighbours.\n\n", comparison.selection_rule);
-    if (transits.size() > 0)
-      md << "The evidence uses the velocities only; ln L and BIC in the search table above also include the transit times, "
-            "so the two tables' ln L differ.\n\n";
     for (const auto& n : comparison.notes)
       if (n.rfind("prior: ", 0) != 0) md << "- " << n << "\n";
     md << "\n";

@@ -271,6 +271,13 @@ VelocityData load_velocities(const std::vector<std::string>& paths,
   return combine_velocities(files);
 }
 
+std::vector<bool> TransitData::planets_with_times(int n_planets) const {
+  std::vector<bool> out(static_cast<std::size_t>(std::max(n_planets, 0)), false);
+  for (int j = 0; j < n_planets; ++j)
+    out[static_cast<std::size_t>(j)] = std::find(planet.begin(), planet.end(), planet_label(j)) != planet.end();
+  return out;
+}
+
 TransitData TransitData::for_planet(const std::string& label) const {
   TransitData out;
   out.reference_epoch_bjd = reference_epoch_bjd;

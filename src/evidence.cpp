@@ -10,12 +10,16 @@
 #include <chrono>
 #include <cmath>
 #include <condition_variable>
+#include <memory>
 #include <mutex>
 #include <numeric>
+#include <optional>
 #include <random>
 #include <thread>
 
 #include "apsides/constants.h"
+#include "apsides/ephemeris.h"
+#include "apsides/periodogram.h"
 #include "apsides/error.h"
 
 namespace apsides {
@@ -131,9 +135,61 @@ struct WalkOutcome {
   bool ok = false;
 };
 
-// One replacement: a slice-sampling walk from `start` inside ln L > ln_like_min.
+// Mixture density of the period part of a mode jump (see NestedProblem::Jump).
+double peak_density(const NestedProblem::Jump& j, double u) {
+  double g = 0.0;
+  for (std::size_t m = 0; m < j.centres.size(); ++m) {
+    const double c = j.centres[m], w = j.widths[m];
+    const double mass = 0.5 * (std::erf((1.0 - c) / (w * std::sqrt(2.0))) - std::erf(-c / (w * std::sqrt(2.0))));
+    const double z = (u - c) / w;
+    g += std::exp(-0.5 * z * z) / (w * std::sqrt(2.0 * constants::kPi) * std::max(mass, 1e-300));
+  }
+  return j.centres.empty() ? 1.0 : g / static_cast<double>(j.centres.size());
+}
+
+// Density of the whole jump block at (u_period, u_amplitude).
+double jump_density(const NestedProblem::Jump& j, double kappa, double u_period, double u_small) {
+  const double wp = j.centres.empty() ? 0.0 : j.w_peak;
+  const double ws = j.small_coordinate >= 0 ? j.w_small : 0.0;
+  const double norm = j.w_uniform + wp + ws;
+  double q = j.w_uniform;
+  if (wp > 0.0) q += wp * peak_density(j, u_period);
+  if (ws > 0.0 && u_small < kappa) q += ws / kappa;
+  return q / norm;
+}
+
+// Draws a jump block into y (period, amplitude, uniform coordinates).
+void jump_draw(const NestedProblem::Jump& j, double kappa, Eigen::VectorXd& y, std::mt19937_64& rng) {
+  std::uniform_real_distribution<double> unif(0.0, 1.0);
+  const double wp = j.centres.empty() ? 0.0 : j.w_peak;
+  const double ws = j.small_coordinate >= 0 ? j.w_small : 0.0;
+  const double r = unif(rng) * (j.w_uniform + wp + ws);
+  y[j.coordinate] = unif(rng);
+  if (j.small_coordinate >= 0) y[j.small_coordinate] = unif(rng);
+  for (int c : j.redraw_uniform) y[c] = unif(rng);
+  if (r < j.w_uniform) return;
+  if (r < j.w_uniform + wp) {
+    std::uniform_int_distribution<std::size_t> pick(0, j.centres.size() - 1);
+    const std::size_t m = pick(rng);
+    std::normal_distribution<double> gauss(j.centres[m], j.widths[m]);
+    for (int tries = 0; tries < 1000; ++tries) {
+      const double u = gauss(rng);
+      if (u >= 0.0 && u < 1.0) {
+        y[j.coordinate] = u;
+        return;
+      }
+    }
+    return;  // a centre far outside the cube: the uniform draw stands (q covers it)
+  }
+  y[j.small_coordinate] = kappa * unif(rng);
+}
+
+// One replacement: a slice-sampling walk from `start` inside ln L > ln_like_min, with
+// mode-jump attempts between slice moves.
 WalkOutcome slice_walk(const Evaluator& eval, const LivePoint& start, double ln_like_min,
-                       const Eigen::MatrixXd& chol, int steps, std::mt19937_64& rng) {
+                       const Eigen::MatrixXd& chol, int steps, std::mt19937_64& rng,
+                       const std::vector<NestedProblem::Jump>& jumps, const std::vector<double>& kappas,
+                       double jumps_per_step) {
   const int d = static_cast<int>(start.u.size());
   std::uniform_real_distribution<double> unif(0.0, 1.0);
   std::normal_distribution<double> gauss(0.0, 1.0);
@@ -183,6 +239,25 @@ WalkOutcome slice_walk(const Evaluator& eval, const LivePoint& start, double ln_
       if (t < 0.0) left = t; else right = t;
     }
     if (!moved) return out;  // the bracket collapsed onto x without finding a point
+    // floor(rate) jump attempts, plus one more with probability frac(rate).
+    int n_jumps = jumps.empty() ? 0 : static_cast<int>(jumps_per_step);
+    if (!jumps.empty() && unif(rng) < jumps_per_step - std::floor(jumps_per_step)) ++n_jumps;
+    for (int q = 0; q < n_jumps; ++q) {
+      std::uniform_int_distribution<std::size_t> pick(0, jumps.size() - 1);
+      const std::size_t which = pick(rng);
+      const NestedProblem::Jump& jp = jumps[which];
+      const double kappa = kappas[which];
+      y = x;
+      jump_draw(jp, kappa, y, rng);
+      const int sc = jp.small_coordinate;
+      const double accept = jump_density(jp, kappa, x[jp.coordinate], sc >= 0 ? x[sc] : 1.0) /
+                            jump_density(jp, kappa, y[jp.coordinate], sc >= 0 ? y[sc] : 1.0);
+      if (unif(rng) < accept && inside(y, l)) {
+        x = y;
+        out.point.ln_like = l;
+        out.point.theta = theta;
+      }
+    }
   }
   out.point.u.assign(x.data(), x.data() + d);
   out.ok = true;
@@ -211,6 +286,8 @@ std::string NestedOptions::Validate() const {
   if (!(ln_z_tolerance > 0.0) || !std::isfinite(ln_z_tolerance))
     return fmt::format("ln_z_tolerance = {}: must be > 0", ln_z_tolerance);
   if (max_iterations < 0) return fmt::format("max_iterations = {}: must be >= 0", max_iterations);
+  if (!(jumps_per_step >= 0.0 && jumps_per_step <= 100.0))
+    return fmt::format("jumps_per_step = {}: must be in [0, 100]", jumps_per_step);
   return "";
 }
 
@@ -313,13 +390,30 @@ NestedResult run_nested_sampling(const NestedProblem& problem, const NestedOptio
                                ? Eigen::MatrixXd(llt.matrixL())
                                : Eigen::MatrixXd(cov.diagonal().cwiseSqrt().asDiagonal());
 
+    // Each jump's "no signal" amplitude range: the lower quartile of the live points'
+    // amplitude coordinates over every jump block (at least 1e-6).
+    std::vector<double> kappas(problem.jumps.size(), 1.0);
+    if (!problem.jumps.empty()) {
+      std::vector<double> amps;
+      for (int i = batch; i < n; ++i)
+        for (const auto& jp : problem.jumps)
+          if (jp.small_coordinate >= 0)
+            amps.push_back(live[static_cast<std::size_t>(order[static_cast<std::size_t>(i)])]
+                               .u[static_cast<std::size_t>(jp.small_coordinate)]);
+      if (!amps.empty()) {
+        const auto q = amps.begin() + static_cast<std::ptrdiff_t>(amps.size() / 4);
+        std::nth_element(amps.begin(), q, amps.end());
+        std::fill(kappas.begin(), kappas.end(), std::clamp(*q, 1e-6, 1.0));
+      }
+    }
     const std::uint64_t first_stream = replacement_stream;
     replacement_stream += static_cast<std::uint64_t>(batch);
     workers.run(batch, [&](int j) {
       auto rng = make_stream(options.seed, first_stream + static_cast<std::uint64_t>(j));
       std::uniform_int_distribution<std::size_t> pick(0, starts.size() - 1);
       const LivePoint& start = live[static_cast<std::size_t>(starts[pick(rng)])];
-      outcomes[static_cast<std::size_t>(j)] = slice_walk(eval, start, ln_like_star, chol, steps, rng);
+      outcomes[static_cast<std::size_t>(j)] =
+          slice_walk(eval, start, ln_like_star, chol, steps, rng, problem.jumps, kappas, options.jumps_per_step);
     });
     bool failed = false;
     for (int j = 0; j < batch; ++j) {
@@ -443,7 +537,7 @@ bool same_ecc_prior(const EccentricityPrior& a, const EccentricityPrior& b) {
 }
 
 // Where each cube coordinate goes.
-enum class SlotKind { kPlain, kEccentricity, kOmega, kPhase };
+enum class SlotKind { kPlain, kEccentricity, kOmega, kPhase, kTransitPeriod, kTransitPhase };
 struct Slot {
   SlotKind kind;
   std::size_t index;  // theta index (for kEccentricity/kOmega: the planet's h index)
@@ -452,8 +546,22 @@ struct Slot {
 
 }  // namespace
 
+namespace {
+// The prior's CDF at x, by bisection on its quantile (priors here are continuous and
+// strictly increasing on their support).
+double prior_cdf(const Prior& p, double x) {
+  double lo = 0.0, hi = 1.0;
+  for (int i = 0; i < 60; ++i) {
+    const double mid = 0.5 * (lo + hi);
+    if (p.quantile(mid) < x) lo = mid; else hi = mid;
+  }
+  return 0.5 * (lo + hi);
+}
+}  // namespace
+
 RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const ModelPriors& priors,
-                                           bool phase_conjunction) {
+                                           bool phase_conjunction, const EvidenceTransits* transits,
+                                           std::span<const double> period_hints_days) {
   const ModelLayout layout = model.layout();
   const std::size_t n_params = layout.n_params();
   if (priors.parameter.size() != n_params || priors.eccentricity.size() != static_cast<std::size_t>(layout.n_planets))
@@ -496,25 +604,35 @@ RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const Mo
   }
 
   // Are the planets exchangeable (identical priors)? Then sort whole blocks by period.
+  // Planets named by transit times keep their slot; the others ("free") are ordered.
+  std::vector<int> free_planets;
+  for (int j = 0; j < k; ++j)
+    if (!priors.is_label_fixed(j)) free_planets.push_back(j);
+  const int n_free = static_cast<int>(free_planets.size());
   bool exchangeable = true;
-  for (int j = 1; j < k; ++j) {
-    for (int s = 0; s < 5; ++s)
-      if (!same_prior(priors.parameter[static_cast<std::size_t>(5 * j + s)], priors.parameter[static_cast<std::size_t>(s)]))
-        exchangeable = false;
-    if (!same_ecc_prior(priors.eccentricity[static_cast<std::size_t>(j)], priors.eccentricity[0])) exchangeable = false;
+  for (int f = 1; f < n_free; ++f) {
+    const std::size_t j = static_cast<std::size_t>(free_planets[static_cast<std::size_t>(f)]);
+    const std::size_t j0 = static_cast<std::size_t>(free_planets[0]);
+    for (std::size_t s = 0; s < 5; ++s)
+      if (!same_prior(priors.parameter[5 * j + s], priors.parameter[5 * j0 + s])) exchangeable = false;
+    if (!same_ecc_prior(priors.eccentricity[j], priors.eccentricity[j0])) exchangeable = false;
   }
-  const bool order = priors.order_periods && k > 1;
+  const bool order = priors.order_periods && n_free > 1;
   const bool sort_blocks = order && exchangeable;
   const bool constrain = order && !exchangeable;
+  const std::string fixed_text =
+      n_free < k ? fmt::format(" (planets named by transit times keep their letter and are not ordered: {} of {} ordered)",
+                               n_free, k)
+                 : std::string();
   if (!order) {
-    out.ordering_note = k > 1 ? "planets not ordered by period (each mode counted k! times; evidence unaffected)"
-                              : "one planet or none: no labelling";
+    out.ordering_note = n_free > 1 ? "planets not ordered by period (each mode counted k! times; evidence unaffected)"
+                                   : "at most one planet to order: no labelling" + fixed_text;
   } else if (sort_blocks) {
     out.ordering_note = fmt::format(
         "planets labelled by increasing period: the {} planets are drawn from identical independent priors and "
         "sorted by period; the sorted draw follows the ordered prior ({}! x the unordered density on "
-        "P_b < P_c < ...), normalised, so ln Z equals the unordered evidence (no correction added)",
-        k, k);
+        "P_{} < P_{} < ...), normalised, so ln Z equals the unordered evidence (no correction added){}",
+        n_free, n_free, planet_label(free_planets[0]), planet_label(free_planets[1]), fixed_text);
   } else {
     // Prior probability of the ordering, by Monte Carlo with a fixed seed.
     auto rng = make_stream(0x5eedULL, 0x07dULL);
@@ -523,8 +641,17 @@ RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const Mo
     int hits = 0;
     std::vector<double> per(static_cast<std::size_t>(k));
     for (int n = 0; n < kDraws; ++n) {
-      for (int j = 0; j < k; ++j) per[static_cast<std::size_t>(j)] = priors.parameter[static_cast<std::size_t>(5 * j)].quantile(unif(rng));
-      if (std::is_sorted(per.begin(), per.end()) && std::adjacent_find(per.begin(), per.end()) == per.end()) ++hits;
+      bool allowed = true;
+      for (int j = 0; j < k; ++j) {
+        per[static_cast<std::size_t>(j)] = priors.parameter[static_cast<std::size_t>(5 * j)].quantile(unif(rng));
+        const double e = priors.eccentricity[static_cast<std::size_t>(j)].quantile_e(unif(rng));
+        if (!priors.periastron_allowed(per[static_cast<std::size_t>(j)], std::sqrt(e), 0.0)) allowed = false;
+      }
+      std::vector<double> ordered;
+      for (int j : free_planets) ordered.push_back(per[static_cast<std::size_t>(j)]);
+      if (allowed && std::is_sorted(ordered.begin(), ordered.end()) &&
+          std::adjacent_find(ordered.begin(), ordered.end()) == ordered.end())
+        ++hits;
     }
     if (hits == 0)
       throw InputError("priors: the planets' period priors leave no room for P_b < P_c < ...; check the "
@@ -533,20 +660,113 @@ RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const Mo
     out.ln_evidence_offset = -std::log(frac);
     out.ordering_note = fmt::format(
         "planets labelled by increasing period: the planets have different priors, so the ordering is a "
-        "constraint (zero likelihood outside) and ln Z includes -ln P(ordered) = {:.4f} (P(ordered) = {:.5f} "
+        "constraint (zero likelihood outside) and ln Z includes -ln P(ordered{}) = {:.4f} (P = {:.5f} "
         "+- {:.5f} by Monte Carlo)",
-        out.ln_evidence_offset, frac, std::sqrt(frac * (1 - frac) / kDraws));
+        priors.periastron_limit_active() ? ", periastron outside the star" : "", out.ln_evidence_offset, frac,
+        std::sqrt(frac * (1 - frac) / kDraws));
+  }
+  // Orbits crossing the star are excluded (zero likelihood there): the prior left is
+  // renormalised by the allowed fraction of each planet (already in the Monte Carlo above).
+  const bool periastron = priors.periastron_limit_active() && k > 0;
+  if (periastron && !constrain) {
+    double ln_allowed = 0.0;
+    for (int j = 0; j < k; ++j) ln_allowed += std::log(priors.periastron_allowed_fraction(j));
+    if (!std::isfinite(ln_allowed))
+      throw InputError("priors: every orbit of the period prior crosses the star (periastron inside the stellar "
+                       "radius); check [search] min_period_d and [star]");
+    out.ln_evidence_offset -= ln_allowed;
+    out.prior_notes.push_back(fmt::format(
+        "orbits with periastron inside the star (a(1 - e) < {:.3g} R_sun) excluded; the prior is renormalised by "
+        "the allowed fraction {:.4f} per planet (ln Z includes {:+.4f})",
+        priors.min_periastron_au * constants::kAu / constants::kRSun, priors.periastron_allowed_fraction(0),
+        -ln_allowed));
+  } else if (periastron) {
+    out.prior_notes.push_back(fmt::format("orbits with periastron inside the star (a(1 - e) < {:.3g} R_sun) excluded",
+                                          priors.min_periastron_au * constants::kAu / constants::kRSun));
+  }
+
+  // Transit times: terms on the model's planets named by them, and for letters beyond
+  // the model's planets a transit-only ephemeris (P, t_conj) with the period and phase
+  // priors that planet would have, so every model explains the same data.
+  struct TransitTerm {
+    std::size_t period_index, t_conj_index;
+    std::shared_ptr<const TransitTimingLikelihood> like;
+  };
+  std::vector<TransitTerm> terms;
+  std::vector<Prior> extra_period_priors, extra_t_priors;
+  std::size_t n_total = n_params;
+  std::vector<std::string> all_names = names;
+  if (transits != nullptr && transits->times.size() > 0) {
+    for (int j = 0; j < 26; ++j) {
+      const TransitData td = transits->times.for_planet(planet_label(j));
+      if (td.size() == 0) continue;
+      auto like = std::make_shared<const TransitTimingLikelihood>(td, model.data().reference_epoch_bjd);
+      if (j < k) {
+        terms.push_back({static_cast<std::size_t>(5 * j), static_cast<std::size_t>(5 * j + 4), like});
+        continue;
+      }
+      if (transits->wide_priors.parameter.size() < static_cast<std::size_t>(5 * j + 5))
+        throw InputError(fmt::format("evidence: no priors for planet '{}' named by transit times", planet_label(j)));
+      const Prior& pp = transits->wide_priors.parameter[static_cast<std::size_t>(5 * j)];
+      const Prior& tp = transits->wide_priors.parameter[static_cast<std::size_t>(5 * j + 4)];
+      slots.push_back({SlotKind::kTransitPeriod, n_total, j});
+      slots.push_back({SlotKind::kTransitPhase, n_total + 1, j});
+      extra_period_priors.push_back(pp);
+      extra_t_priors.push_back(tp);
+      terms.push_back({n_total, n_total + 1, like});
+      all_names.push_back(planet_label(j) + ".period_d");
+      all_names.push_back(planet_label(j) + ".t_conj_d");
+      out.prior_notes.push_back(fmt::format("{}.period_d  {} (transit times only: no velocity signal in this model)",
+                                            planet_label(j), pp.describe()));
+      out.prior_notes.push_back(fmt::format("{}.t_conj_d  uniform over one period (phase prior)", planet_label(j)));
+      n_total += 2;
+    }
+  }
+  out.n_transit_points = 0;
+  for (const auto& t : terms) out.n_transit_points += t.like->size();
+
+  // Mode jumps on each ordered planet's period (phase and K redrawn), to the hinted
+  // periods; the peak width in period is about P^2 / baseline.
+  {
+    const double baseline = std::max(model.data().baseline_days(), 1.0);
+    for (int j : free_planets) {
+      const std::size_t b = static_cast<std::size_t>(5 * j);
+      int c_period = -1, c_amplitude = -1;
+      std::vector<int> others;
+      for (std::size_t c = 0; c < slots.size(); ++c) {
+        const Slot& sc = slots[c];
+        if (sc.planet != j) continue;
+        if (sc.kind == SlotKind::kPlain && sc.index == b) c_period = static_cast<int>(c);
+        if (sc.kind == SlotKind::kPlain && sc.index == b + 1) c_amplitude = static_cast<int>(c);
+        if ((sc.kind == SlotKind::kPlain && sc.index == b + 4) || sc.kind == SlotKind::kPhase)
+          others.push_back(static_cast<int>(c));
+      }
+      if (c_period < 0) continue;
+      const Prior& pp = priors.parameter[b];
+      NestedProblem::Jump jump;
+      jump.coordinate = c_period;
+      jump.small_coordinate = c_amplitude;
+      jump.redraw_uniform = others;
+      for (double hint : period_hints_days) {
+        if (!(hint > pp.lower() && hint < pp.upper()) || !std::isfinite(pp.log_density(hint))) continue;
+        const double sigma_p = 0.5 * hint * hint / baseline;
+        jump.centres.push_back(prior_cdf(pp, hint));
+        jump.widths.push_back(std::max(std::exp(pp.log_density(hint)) * sigma_p, 1e-9));
+      }
+      out.problem.jumps.push_back(std::move(jump));
+    }
   }
 
   const ModelPriors pri = priors;
   const std::vector<Slot> sl = slots;
   const auto layout_copy = layout;
   out.problem.dimension = static_cast<int>(slots.size());
-  out.problem.n_params = static_cast<int>(n_params);
-  out.problem.names = names;
-  out.problem.prior_transform = [pri, sl, fixed, layout_copy, sort_blocks, k](std::span<const double> u,
-                                                                             std::span<double> theta) {
-    for (std::size_t i = 0; i < theta.size(); ++i) theta[i] = fixed[i];
+  out.problem.n_params = static_cast<int>(n_total);
+  out.problem.names = all_names;
+  out.problem.prior_transform = [pri, sl, fixed, layout_copy, sort_blocks, k, free_planets, extra_period_priors,
+                                 extra_t_priors, n_params](std::span<const double> u, std::span<double> theta) {
+    for (std::size_t i = 0; i < n_params; ++i) theta[i] = fixed[i];
+    std::size_t extra = 0;
     // Eccentricity and omega first land in (h, k) slots as (e, w), converted below.
     std::vector<double> phase_u(static_cast<std::size_t>(k), -1.0);
     for (std::size_t s = 0; s < sl.size(); ++s) {
@@ -558,6 +778,13 @@ RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const Mo
           break;
         case SlotKind::kOmega: theta[slot.index + 1] = 2.0 * constants::kPi * u[s] - constants::kPi; break;
         case SlotKind::kPhase: phase_u[static_cast<std::size_t>(slot.planet)] = u[s]; break;
+        case SlotKind::kTransitPeriod: theta[slot.index] = extra_period_priors[extra].quantile(u[s]); break;
+        case SlotKind::kTransitPhase: {
+          const Prior& tp = extra_t_priors[extra];
+          theta[slot.index] = 0.5 * (tp.a + tp.b) + (u[s] - 0.5) * theta[slot.index - 1];
+          ++extra;
+          break;
+        }
       }
     }
     for (int j = 0; j < k; ++j) {
@@ -576,10 +803,15 @@ RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const Mo
     }
     if (sort_blocks) {
       std::array<double, 5> tmp{};
-      // Insertion sort of the planet blocks by period (k is small).
-      for (int j = 1; j < k; ++j) {
-        for (int m = j; m > 0 && theta[static_cast<std::size_t>(5 * m)] < theta[static_cast<std::size_t>(5 * (m - 1))]; --m) {
-          const std::size_t a = static_cast<std::size_t>(5 * m), c = static_cast<std::size_t>(5 * (m - 1));
+      // Insertion sort of the free planets' blocks by period (k is small); planets named
+      // by transit times stay in their slots.
+      const int nf = static_cast<int>(free_planets.size());
+      for (int j = 1; j < nf; ++j) {
+        for (int m = j; m > 0 && theta[static_cast<std::size_t>(5 * free_planets[static_cast<std::size_t>(m)])] <
+                                     theta[static_cast<std::size_t>(5 * free_planets[static_cast<std::size_t>(m - 1)])];
+             --m) {
+          const std::size_t a = static_cast<std::size_t>(5 * free_planets[static_cast<std::size_t>(m)]);
+          const std::size_t c = static_cast<std::size_t>(5 * free_planets[static_cast<std::size_t>(m - 1)]);
           for (int q = 0; q < 5; ++q) tmp[static_cast<std::size_t>(q)] = theta[a + static_cast<std::size_t>(q)];
           for (int q = 0; q < 5; ++q) theta[a + static_cast<std::size_t>(q)] = theta[c + static_cast<std::size_t>(q)];
           for (int q = 0; q < 5; ++q) theta[c + static_cast<std::size_t>(q)] = tmp[static_cast<std::size_t>(q)];
@@ -589,11 +821,17 @@ RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const Mo
     (void)layout_copy;
   };
   const KeplerianModel* m = &model;
-  out.problem.log_likelihood = [m, constrain, k](std::span<const double> theta) {
-    if (constrain)
-      for (int j = 1; j < k; ++j)
-        if (!(theta[static_cast<std::size_t>(5 * j)] > theta[static_cast<std::size_t>(5 * (j - 1))])) return -kInf;
-    return m->log_likelihood(theta);
+  out.problem.log_likelihood = [m, constrain, k, pri, periastron, terms, n_params](std::span<const double> theta) {
+    if (constrain && pri.first_unordered_planet(theta, k) >= 0) return -kInf;
+    if (periastron)
+      for (int j = 0; j < k; ++j) {
+        const std::size_t b = static_cast<std::size_t>(5 * j);
+        if (!pri.periastron_allowed(theta[b], theta[b + 2], theta[b + 3])) return -kInf;
+      }
+    double l = m->log_likelihood(theta.first(n_params));
+    if (!std::isfinite(l)) return l;
+    for (const auto& t : terms) l += t.like->log_likelihood(theta[t.period_index], theta[t.t_conj_index]);
+    return l;
   };
   return out;
 }
@@ -632,16 +870,41 @@ std::string CompareOptions::Validate() const {
 CompareResult compare_planet_counts(const VelocityData& data, const ModelLayout& base_layout,
                                     const std::function<ModelPriors(const ModelLayout&)>& priors_for,
                                     const CompareOptions& options,
-                                    const std::function<void(int k, const std::string& status)>& on_status) {
+                                    const std::function<void(int k, const std::string& status)>& on_status,
+                                    const TransitData* transits) {
   if (const std::string v = options.Validate(); !v.empty()) throw InputError("compare: " + v);
   const auto t_start = std::chrono::steady_clock::now();
   CompareResult res;
+  // Transit times: the largest letter they name sets the priors of transit-only planets.
+  std::optional<EvidenceTransits> et;
+  if (transits != nullptr && transits->size() > 0) {
+    int letters = 0;
+    for (int j = 0; j < 26; ++j)
+      if (transits->for_planet(planet_label(j)).size() > 0) letters = j + 1;
+    ModelLayout wide = base_layout;
+    wide.n_planets = std::max(letters, 1);
+    et = EvidenceTransits{*transits, priors_for(wide)};
+  }
+  std::size_t n_points_total = data.size();
+  // Mode-jump targets: the caller's periods and the periodogram's strongest peaks.
+  std::vector<double> hints = options.period_hints_days;
+  if (options.max_planets > 0 && data.size() >= data.n_instruments() + 3) {
+    PeriodogramOptions po;
+    po.n_peaks = 20;
+    po.n_window_peaks = 0;
+    po.threads = options.nested.threads;
+    const PeriodogramResult pg = compute_periodogram(data, po);
+    for (const Peak& pk : pg.peaks) hints.push_back(pk.period_days);
+  }
   for (int k = options.min_planets; k <= options.max_planets; ++k) {
     ModelLayout layout = base_layout;
     layout.n_planets = k;
-    const ModelPriors priors = priors_for(layout);
+    ModelPriors priors = priors_for(layout);
+    if (et) priors.label_fixed = et->times.planets_with_times(k);
     const KeplerianModel model(data, layout);
-    RvEvidenceProblem prob = make_rv_evidence_problem(model, priors, options.phase_conjunction);
+    RvEvidenceProblem prob =
+        make_rv_evidence_problem(model, priors, options.phase_conjunction, et ? &*et : nullptr, hints);
+    n_points_total = data.size() + prob.n_transit_points;
     if (static_cast<std::size_t>(prob.problem.dimension) + 1 >= data.size())
       throw InputError(fmt::format("compare: {} planet(s) need {} free parameters but the data have only {} points",
                                    k, prob.problem.dimension, data.size()));
@@ -657,8 +920,8 @@ CompareResult compare_planet_counts(const VelocityData& data, const ModelLayout&
     row.ln_evidence_err = row.nested.ln_evidence_err;
     row.information_nats = row.nested.information_nats;
     row.ln_like_max = row.nested.ln_like_max;
-    row.bic = bic(row.ln_like_max, row.n_params, data.size());
-    row.aicc = aicc(row.ln_like_max, row.n_params, data.size());
+    row.bic = bic(row.ln_like_max, row.n_params, n_points_total);
+    row.aicc = aicc(row.ln_like_max, row.n_params, n_points_total);
     row.seconds = row.nested.seconds;
     row.likelihood_calls = row.nested.likelihood_calls;
     if (!res.rows.empty()) {
@@ -699,6 +962,13 @@ CompareResult compare_planet_counts(const VelocityData& data, const ModelLayout&
       "A supported signal is not necessarily a planet: stellar activity and rotation, and aliases of a true "
       "period (1 d, 1 yr, the window), can also be preferred; check activity indicators and the periodogram.");
   res.notes.push_back("max ln L is the best point nested sampling visited (a lower bound of the true maximum).");
+  if (et)
+    res.notes.push_back(fmt::format(
+        "Transit times ({}) are in every model's likelihood, ln L and BIC/AICc (n = {} velocities + transit times): "
+        "the transiting planet keeps its letter in every model, and a model without it explains the times by a "
+        "transit-only ephemeris, so the Bayes factors compare velocity signals.",
+        et->times.size(), n_points_total));
+  res.n_points = n_points_total;
   return res;
 }
 
@@ -715,7 +985,7 @@ std::string CompareResult::FullReport() const {
   for (const auto& r : rows) {
     s += fmt::format("{:>7} {:>6} {:>11.2f} {:>10.2f} {:>10.2f} {:>9.2f} +- {:4.2f} {:>8.1f} ", r.n_planets, r.n_params,
                      r.ln_like_max, r.bic, r.aicc, r.ln_evidence, r.ln_evidence_err, r.information_nats);
-    if (r.n_planets == 0)
+    if (std::isnan(r.ln_bayes_vs_previous))
       s += fmt::format("{:>14}  {}\n", "-", "");
     else
       s += fmt::format("{:>7.2f} +- {:4.2f}  {}\n", r.ln_bayes_vs_previous, r.ln_bayes_err, r.bayes_wording);

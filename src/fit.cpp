@@ -83,7 +83,9 @@ class Objective {
       double h = theta[k + 2], kk = theta[k + 3];
       const double emax = pb_.priors.eccentricity[static_cast<std::size_t>(j)].kind == EccentricityPriorKind::kCircular
                               ? 0.0
-                              : pb_.priors.eccentricity[static_cast<std::size_t>(j)].max_ecc;
+                              : std::clamp(std::min(pb_.priors.eccentricity[static_cast<std::size_t>(j)].max_ecc,
+                                                    pb_.priors.periastron_max_eccentricity(theta[k]) - 1e-9),
+                                           0.0, 1.0);
       double e = h * h + kk * kk;
       if (e >= emax && e > 0.0) {
         const double lim = std::max(emax - 1e-9, 0.0);
@@ -147,8 +149,9 @@ class Objective {
       if (ep.kind == EccentricityPriorKind::kCircular) continue;
       double h = theta[k + 2], kk = theta[k + 3];
       const double e = h * h + kk * kk;
-      if (e >= ep.max_ecc) {
-        const double s = std::sqrt((ep.max_ecc - 1e-9) / e);
+      const double emax = std::min(ep.max_ecc, pb_.priors.periastron_max_eccentricity(theta[k]));
+      if (e >= emax && e > 0.0) {
+        const double s = std::sqrt(std::max(emax - 1e-9, 0.0) / e);
         h *= s;
         kk *= s;
       }
@@ -595,9 +598,16 @@ std::vector<double> refine_periods(const std::vector<double>& cands, double T, d
 
 void wrap_and_sort(const FitProblem& pb, std::vector<double>& theta) {
   const ModelLayout& L = pb.layout;
-  std::vector<Planet> ps;
-  for (int j = 0; j < L.n_planets; ++j) ps.push_back(planet_from(theta, L, j));
-  std::stable_sort(ps.begin(), ps.end(), [](const Planet& a, const Planet& b) { return a.period_days < b.period_days; });
+  // Planets named by transit times keep their slot; the others are sorted by period
+  // into the remaining slots.
+  std::vector<Planet> ps, free;
+  for (int j = 0; j < L.n_planets; ++j) {
+    ps.push_back(planet_from(theta, L, j));
+    if (!pb.priors.is_label_fixed(j)) free.push_back(ps.back());
+  }
+  std::stable_sort(free.begin(), free.end(), [](const Planet& a, const Planet& b) { return a.period_days < b.period_days; });
+  for (int j = 0, f = 0; j < L.n_planets; ++j)
+    if (!pb.priors.is_label_fixed(j)) ps[static_cast<std::size_t>(j)] = free[static_cast<std::size_t>(f++)];
   for (int j = 0; j < L.n_planets; ++j) {
     Planet p = ps[static_cast<std::size_t>(j)];
     const Prior& tp = pb.priors.parameter[L.planet_index(j) + 4];
@@ -882,7 +892,9 @@ FitProblem make_fit_problem(const SearchProblem& sp, int n_planets) {
   pb.layout.n_instruments = static_cast<int>(sp.data.n_instruments());
   pb.layout.trend = sp.model.trend;
   pb.layout.fit_jitter = sp.model.fit_jitter;
-  pb.priors = build_priors(sp.data, pb.layout, sp.search, sp.model, sp.priors, std::max(n_planets, sp.search.max_planets));
+  pb.priors = build_priors(sp.data, pb.layout, sp.search, sp.model, sp.priors, std::max(n_planets, sp.search.max_planets),
+                           &sp.star);
+  pb.priors.label_fixed = sp.transits.planets_with_times(n_planets);
   return pb;
 }
 
@@ -943,6 +955,7 @@ SearchProblem search_problem(const Project& project, const VelocityData& data, c
   sp.search = project.search;
   sp.model = project.model;
   sp.priors = project.priors;
+  sp.star = project.star;
   return sp;
 }
 

@@ -6,6 +6,7 @@
 #include <cmath>
 #include <limits>
 
+#include "apsides/constants.h"
 #include "apsides/error.h"
 
 namespace apsides {
@@ -124,7 +125,7 @@ PeriodRange default_period_range(const VelocityData& data, const SearchSettings&
 
 ModelPriors build_priors(const VelocityData& data, const ModelLayout& layout,
                          const SearchSettings& search, const ModelSettings& model,
-                         const std::vector<PriorSpec>& overrides, int planets_allowed) {
+                         const std::vector<PriorSpec>& overrides, int planets_allowed, const StarSpec* star) {
   const DataStats st = data_stats(data);
   const PeriodRange pr = default_period_range(data, search);
   const std::vector<std::string> names = layout.names(data.instrument_names);
@@ -232,7 +233,21 @@ ModelPriors build_priors(const VelocityData& data, const ModelLayout& layout,
     pmax = std::max(pmax, 1e-6);
     mp.parameter[k + 4] = Prior::uniform(st.t_mid - 0.5 * pmax, st.t_mid + 0.5 * pmax);
   }
+  if (star != nullptr && model.periastron_outside_star) {
+    if (const auto r = periastron_limit_radius(*star)) {
+      mp.star_mass_msun = *star->mass_msun;
+      mp.min_periastron_au = r->radius_rsun * constants::kRSun / constants::kAu;
+    }
+  }
   return mp;
+}
+
+std::optional<StarRadius> periastron_limit_radius(const StarSpec& star) {
+  if (!star.mass_msun || !(*star.mass_msun > 0.0)) return std::nullopt;
+  if (star.radius_rsun && *star.radius_rsun > 0.0) return StarRadius{*star.radius_rsun, false};
+  // Main-sequence mass-radius relation R ~ M^0.8 (common practice; rough, but only the
+  // edge of an excluded region depends on it).
+  return StarRadius{std::pow(*star.mass_msun, 0.8), true};
 }
 
 std::string first_outside_support(const ModelPriors& priors, const ModelLayout& layout,
@@ -250,8 +265,9 @@ std::string first_outside_support(const ModelPriors& priors, const ModelLayout& 
     const std::size_t k = layout.planet_index(j);
     if (!std::isfinite(priors.eccentricity[static_cast<std::size_t>(j)].log_density_hk(theta[k + 2], theta[k + 3])))
       return planet_label(j) + ".eccentricity";
-    if (priors.order_periods && j > 0 && !(theta[k] > theta[k - 5])) return names[k];
+    if (!priors.periastron_allowed(theta[k], theta[k + 2], theta[k + 3])) return planet_label(j) + ".eccentricity";
   }
+  if (const int j = priors.first_unordered_planet(theta, layout.n_planets); j >= 0) return names[layout.planet_index(j)];
   return "";
 }
 
@@ -297,7 +313,16 @@ std::vector<std::string> describe_priors(const ModelPriors& priors, const ModelL
     }
     out.push_back(fmt::format("{:<22} {}", names[i], priors.parameter[i].describe()));
   }
-  if (priors.order_periods && layout.n_planets > 1) out.push_back("(planets ordered by period: P_b < P_c < ...)");
+  if (priors.order_periods && layout.n_planets > 1) {
+    std::string fixed;
+    for (int j = 0; j < layout.n_planets; ++j)
+      if (priors.is_label_fixed(j)) fixed += (fixed.empty() ? "" : ", ") + planet_label(j);
+    out.push_back(fixed.empty() ? "(planets ordered by period: P_b < P_c < ...)"
+                                : fmt::format("(planets ordered by period, except {} named by transit times)", fixed));
+  }
+  if (priors.periastron_limit_active() && layout.n_planets > 0)
+    out.push_back(fmt::format("(orbits with periastron a(1 - e) inside the star, < {:.3g} R_sun, excluded)",
+                              priors.min_periastron_au * constants::kAu / constants::kRSun));
   return out;
 }
 

@@ -4,6 +4,7 @@
 
 #include <boost/math/distributions/beta.hpp>
 #include <boost/math/distributions/normal.hpp>
+#include <boost/math/quadrature/gauss_kronrod.hpp>
 #include <algorithm>
 #include <cmath>
 #include <limits>
@@ -231,6 +232,51 @@ std::string EccentricityPrior::describe() const {
   return "";
 }
 
+double EccentricityPrior::cdf_e(double e) const {
+  if (kind == EccentricityPriorKind::kCircular) return e >= 0.0 ? 1.0 : 0.0;
+  if (!(e > 0.0)) return 0.0;
+  if (e >= max_ecc) return 1.0;
+  if (kind == EccentricityPriorKind::kUniform) return e / max_ecc;
+  boost::math::beta_distribution<double> beta(a, b);
+  return boost::math::cdf(beta, e) / boost::math::cdf(beta, max_ecc);
+}
+
+namespace {
+// Semi-major axis (au) of a massless body with period P (days) around mass M (Msun), by
+// Kepler's third law with the IAU nominal solar mass parameter.
+double semi_major_axis_au(double period_days, double star_mass_msun) {
+  const double p_s = period_days * constants::kDay;
+  const double gm = constants::kGMSun * star_mass_msun;
+  return std::cbrt(gm * p_s * p_s / (4.0 * constants::kPi * constants::kPi)) / constants::kAu;
+}
+}  // namespace
+
+double ModelPriors::periastron_max_eccentricity(double period_days) const {
+  if (!periastron_limit_active()) return 1.0;
+  return 1.0 - min_periastron_au / semi_major_axis_au(period_days, star_mass_msun);
+}
+
+bool ModelPriors::periastron_allowed(double period_days, double h, double k) const {
+  if (!periastron_limit_active()) return true;
+  return h * h + k * k < periastron_max_eccentricity(period_days);
+}
+
+double ModelPriors::periastron_allowed_fraction(int planet) const {
+  if (!periastron_limit_active()) return 1.0;
+  const Prior& pp = parameter.at(static_cast<std::size_t>(5 * planet));
+  const EccentricityPrior& ep = eccentricity.at(static_cast<std::size_t>(planet));
+  // Integrate over the period prior's quantile u in (0, 1): P(allowed) = E_u[F_e(e_max(P(u)))].
+  auto allowed_given_u = [&](double u) {
+    const double period = pp.kind == PriorKind::kFixed ? pp.a : pp.quantile(std::clamp(u, 1e-15, 1.0 - 1e-15));
+    return ep.cdf_e(periastron_max_eccentricity(period));
+  };
+  if (pp.kind == PriorKind::kFixed) return allowed_given_u(0.5);
+  double err = 0.0;
+  const double f = boost::math::quadrature::gauss_kronrod<double, 31>::integrate(allowed_given_u, 0.0, 1.0, 15,
+                                                                                  1e-10, &err);
+  return std::clamp(f, 0.0, 1.0);
+}
+
 bool ModelPriors::in_support(std::span<const double> theta, int n_planets) const {
   return std::isfinite(log_density(theta, n_planets));
 }
@@ -252,9 +298,21 @@ double ModelPriors::log_density(std::span<const double> theta, int n_planets) co
     const double l = eccentricity[static_cast<std::size_t>(j)].log_density_hk(theta[k + 2], theta[k + 3]);
     if (!std::isfinite(l)) return -kInf;
     lp += l;
-    if (order_periods && j > 0 && !(theta[k] > theta[k - 5])) return -kInf;
+    if (!periastron_allowed(theta[k], theta[k + 2], theta[k + 3])) return -kInf;
   }
+  if (first_unordered_planet(theta, n_planets) >= 0) return -kInf;
   return lp;
+}
+
+int ModelPriors::first_unordered_planet(std::span<const double> theta, int n_planets) const {
+  if (!order_periods) return -1;
+  int previous = -1;
+  for (int j = 0; j < n_planets; ++j) {
+    if (is_label_fixed(j)) continue;
+    if (previous >= 0 && !(theta[static_cast<std::size_t>(5 * j)] > theta[static_cast<std::size_t>(5 * previous)])) return j;
+    previous = j;
+  }
+  return -1;
 }
 
 }  // namespace apsides

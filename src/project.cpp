@@ -301,7 +301,7 @@ Project parse_project(const std::string& text, const std::string& path, const st
   }
 
   if (const toml::table* t = get_table(ctx, root, "model")) {
-    check_keys(ctx, *t, "model", {"planets", "trend", "fit_jitter", "eccentricity"});
+    check_keys(ctx, *t, "model", {"planets", "trend", "fit_jitter", "eccentricity", "periastron_outside_star"});
     if (const toml::node* n = t->get("planets")) {
       long k = get_integer(ctx, *t, "model", "planets", 0);
       if (k < 0 || k > 10) throw InputError(fmt::format("{} is {}; it must be between 0 and 10", ctx.where(*n, "model.planets"), k));
@@ -310,6 +310,7 @@ Project parse_project(const std::string& text, const std::string& path, const st
     if (const toml::node* n = t->get("trend"))
       pr.model.trend = parse_trend(get_string(ctx, *t, "model", "trend", "none"), ctx.where(*n, "model.trend"));
     pr.model.fit_jitter = get_bool(ctx, *t, "model", "fit_jitter", true);
+    pr.model.periastron_outside_star = get_bool(ctx, *t, "model", "periastron_outside_star", true);
     if (const toml::node* n = t->get("eccentricity")) {
       const std::string e = get_string(ctx, *t, "model", "eccentricity", "uniform");
       if (e == "uniform") pr.model.eccentricity = EccentricityPriorKind::kUniform;

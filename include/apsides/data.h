@@ -98,6 +98,9 @@ struct TransitData {
   std::size_t size() const { return epoch.size(); }
   // The rows of one planet ("" selects rows without a label), reference epoch kept.
   TransitData for_planet(const std::string& label) const;
+  // For a model of n_planets planets: which planets (by slot, letters b, c, ...) have
+  // transit times here. Those planets keep their letter whatever their period.
+  std::vector<bool> planets_with_times(int n_planets) const;
 };
 
 struct TransitFileOptions {

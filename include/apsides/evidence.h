@@ -55,6 +55,30 @@ struct NestedProblem {
   // ln L(theta); -inf (or NaN) rejects the point.
   std::function<double(std::span<const double> theta)> log_likelihood;
   std::vector<std::string> names;  // optional parameter names (theta order), for reports
+
+  // Optional mode jumps, for narrow modes a local walk finds late (a planet's period: the
+  // likelihood is a comb of narrow peaks across the period prior). A jump is a
+  // Metropolis-Hastings independence move on a block of cube coordinates (a planet's
+  // period `coordinate`, its amplitude `small_coordinate`, and `redraw_uniform`, e.g. its
+  // phase), all other coordinates kept. The block is drawn from the mixture
+  //   q = w_u (all uniform)
+  //     + w_peak (period from mean_m N(centre_m, width_m), each truncated to [0, 1); the
+  //               rest uniform)
+  //     + w_small (amplitude uniform on [0, kappa), the rest uniform; kappa follows the
+  //                live points' amplitudes, so this part proposes "no signal here")
+  // and accepted when inside the likelihood constraint and with probability
+  // min(1, q(old) / q(new)). The walk still leaves the uniform distribution inside the
+  // constraint invariant (the evidence is unchanged); what changes is how fast points
+  // move between "no planet at this period" and a narrow peak, so that a mode gets its
+  // share of live points when it takes over instead of late.
+  struct Jump {
+    int coordinate = 0;
+    int small_coordinate = -1;
+    std::vector<int> redraw_uniform;
+    std::vector<double> centres, widths;  // in the cube
+    double w_uniform = 0.2, w_peak = 0.4, w_small = 0.4;
+  };
+  std::vector<Jump> jumps;
 };
 
 enum class NestedTermination {
@@ -78,6 +102,10 @@ struct NestedOptions {
   // Live points removed and replaced per iteration (>= 1). The result depends on it (the
   // shrinkage treatment is exact for any value); keep it small against live_points.
   int batch_size = 2;
+  // Mode-jump attempts (NestedProblem::jumps) after each slice move, on average. A jump
+  // costs one likelihood call (a slice move several); enough of them let a walk settle
+  // between the modes it can jump to, instead of staying in its start's mode.
+  double jumps_per_step = 2.0;
   // Slice moves per replacement walk; 0 means 3 x dimension (Handley et al. 2015 use
   // 5 x dimension; 3 x is enough for the unimodal-per-mode RV problems, tested against
   // the analytic Gaussians in tests/evidence_test.cpp).
@@ -150,14 +178,34 @@ NestedResult run_nested_sampling(const NestedProblem& problem, const NestedOptio
 // ln k! to it to get the density the evidence uses. When planets have different priors
 // the ordering is imposed as a constraint (L = 0 outside) and the evidence divided by the
 // prior probability of the ordering, estimated by Monte Carlo (see RvEvidenceProblem).
+// Transit times in the evidence (issue: every model compared must explain the same data).
+// A planet whose letter labels transit times keeps that letter (slot) in every model and
+// is not part of the period ordering (ModelPriors::label_fixed must say so); its
+// (P, t_conj) enter T_n = T_conj + n P. In a model with fewer planets than that letter,
+// the transit times get a transit-only ephemeris (P, t_conj) with the period and phase
+// priors of `wide_priors` (the priors of a model large enough to have the letter): the
+// transiting body exists in every model, and only its velocity signal is compared.
+struct EvidenceTransits {
+  TransitData times;
+  ModelPriors wide_priors;
+};
+
 struct RvEvidenceProblem {
   NestedProblem problem;
+  std::size_t n_transit_points = 0;  // transit times in the likelihood
   double ln_evidence_offset = 0.0;  // to add to ln Z (ordering normalisation, see above)
   std::string ordering_note;        // how the labelling entered the evidence
   std::vector<std::string> prior_notes;  // one line per prior, for the report
 };
+//
+// `period_hints_days` (e.g. periodogram peaks and a planet search's periods) become mode
+// jumps (NestedProblem::Jump) on every ordered planet's period coordinate, with its phase
+// and K redrawn: they change how quickly narrow period modes are populated, not the
+// evidence.
 RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const ModelPriors& priors,
-                                           bool phase_conjunction = true);
+                                           bool phase_conjunction = true,
+                                           const EvidenceTransits* transits = nullptr,
+                                           std::span<const double> period_hints_days = {});
 
 // ---------------------------------------------------------------------------------------
 // Model comparison over 0..N planets.
@@ -200,6 +248,10 @@ struct CompareOptions {
   // Raftery call ln B > 5 "very strong".
   double bayes_threshold = 5.0;
   bool phase_conjunction = true;  // see make_rv_evidence_problem
+  // Periods the nested sampler may jump to (make_rv_evidence_problem), added to the 20
+  // strongest peaks of the velocities' periodogram, which are always used; callers that
+  // ran a planet search should pass its periods.
+  std::vector<double> period_hints_days;
   std::string Validate() const;
 };
 
@@ -210,17 +262,20 @@ struct CompareResult {
   std::vector<std::string> notes;  // cautions: m sin i, aliases, priors stated, ...
   std::string message = "Model comparison was not run.";
   double seconds = 0.0;
+  std::size_t n_points = 0;  // velocities + transit times in the likelihood
 
   std::string BriefReport() const;
   std::string FullReport() const;
 };
 
 // Builds the model for each k from `data` and `base_layout` (n_planets replaced), the
-// priors from `priors_for(layout)`, and runs nested sampling for each. Throws InputError
+// priors from `priors_for(layout)`, and runs nested sampling for each. With `transits`,
+// the transit times join every model's likelihood (see EvidenceTransits). Throws InputError
 // when options are invalid.
 CompareResult compare_planet_counts(const VelocityData& data, const ModelLayout& base_layout,
                                     const std::function<ModelPriors(const ModelLayout&)>& priors_for,
                                     const CompareOptions& options,
-                                    const std::function<void(int k, const std::string& status)>& on_status = {});
+                                    const std::function<void(int k, const std::string& status)>& on_status = {},
+                                    const TransitData* transits = nullptr);
 
 }  // namespace apsides

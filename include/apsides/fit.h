@@ -185,6 +185,7 @@ struct SearchProblem {
   SearchSettings search;           // period range, oversample, fap_threshold, max_planets
   ModelSettings model;             // trend, fit_jitter, eccentricity prior
   std::vector<PriorSpec> priors;   // [priors] overrides
+  StarSpec star;                   // host star: the periastron limit of the priors
 };
 
 // The search problem of a project (its data, transit times, [search], [model], [priors]),

@@ -24,6 +24,12 @@
 //   <i>.jitter_ms    half-normal(sd = the instrument's velocity standard deviation, at
 //                    least 2 x its median stated uncertainty): allows zero jitter, and
 //                    is nearly flat over any jitter the data can support.
+//   periastron       with `star` given (mass known) and [model] periastron_outside_star
+//                    (default true): orbits with a (1 - e) below the star's radius are
+//                    excluded (they would cross the star). The radius is [star] radius_rsun,
+//                    else estimated from the mass as R = M^0.8 (main-sequence relation,
+//                    common practice; stated in describe_priors). Without a star mass there
+//                    is no limit.
 //   trend.c1_ms_per_d  uniform(+-10 x range / baseline);
 //   trend.c2_ms_per_d2 uniform(+-10 x range / baseline^2).
 //
@@ -35,6 +41,7 @@
 // prior reaching negative values, a t_conj prior narrower than nothing.
 #pragma once
 
+#include <optional>
 #include <span>
 #include <string>
 #include <vector>
@@ -59,9 +66,19 @@ PeriodRange default_period_range(const VelocityData& data, const SearchSettings&
 // planets any model of this run will have (a search up to max_planets): an override for
 // planet "c" is accepted while fitting one planet when planets_allowed >= 2, and skipped
 // there; -1 means layout.n_planets. Overrides naming anything else are InputErrors.
+// `star` (may be null) sets the periastron limit (see above).
 ModelPriors build_priors(const VelocityData& data, const ModelLayout& layout,
                          const SearchSettings& search, const ModelSettings& model,
-                         const std::vector<PriorSpec>& overrides, int planets_allowed = -1);
+                         const std::vector<PriorSpec>& overrides, int planets_allowed = -1,
+                         const StarSpec* star = nullptr);
+
+// The periastron limit's radius in solar radii for a star ([star] radius_rsun, else
+// M^0.8), and whether it was estimated; nullopt without a mass.
+struct StarRadius {
+  double radius_rsun = 0.0;
+  bool estimated = false;
+};
+std::optional<StarRadius> periastron_limit_radius(const StarSpec& star);
 
 // The name (ModelLayout::names order) of the first parameter of `theta` outside the
 // prior's support, "" when theta is inside. Eccentricity is reported as

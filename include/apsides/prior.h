@@ -65,6 +65,7 @@ struct EccentricityPrior {
   std::string Validate() const;
   double log_density_hk(double h, double k) const;  // -inf outside the support
   double quantile_e(double u) const;                // inverse CDF of e
+  double cdf_e(double e) const;                     // P(eccentricity <= e)
   std::string describe() const;
 };
 
@@ -73,6 +74,36 @@ struct ModelPriors {
   std::vector<Prior> parameter;             // one per theta entry
   std::vector<EccentricityPrior> eccentricity;  // one per planet (acts on its h, k)
   bool order_periods = true;  // planets labelled by increasing period: P_b < P_c < ...
+  // Planets whose letter is fixed by data (transit times labelled with it): they keep
+  // their slot and take no part in the ordering; the other planets are ordered by period
+  // among themselves. One flag per planet; empty = none fixed.
+  std::vector<bool> label_fixed;
+
+  bool is_label_fixed(int planet) const {
+    return planet >= 0 && static_cast<std::size_t>(planet) < label_fixed.size() &&
+           label_fixed[static_cast<std::size_t>(planet)];
+  }
+  // The first planet (slot) that breaks the period ordering, -1 when ordered (or not
+  // ordering).
+  int first_unordered_planet(std::span<const double> theta, int n_planets) const;
+  // Orbits whose periastron lies inside the star are excluded: a (1 - e) must exceed
+  // `min_periastron_au`, with a from Kepler's third law around `star_mass_msun` (the
+  // planet's mass neglected). Off when either is 0. The excluded region makes the prior
+  // integrate to less than one; nested sampling divides its evidence by
+  // periastron_allowed_fraction for each planet (evidence.h).
+  double min_periastron_au = 0.0;
+  double star_mass_msun = 0.0;
+
+  bool periastron_limit_active() const { return min_periastron_au > 0.0 && star_mass_msun > 0.0; }
+  // Largest eccentricity the periastron limit allows at this period (1 when no limit;
+  // <= 0 when even a circular orbit would be inside the star).
+  double periastron_max_eccentricity(double period_days) const;
+  // true when planet (period, h, k) keeps its periastron outside the limit (or no limit).
+  bool periastron_allowed(double period_days, double h, double k) const;
+  // Prior probability that planet j's orbit is allowed: the integral over its period
+  // prior of P(e < 1 - r_min / a(P)) under its eccentricity prior (adaptive
+  // Gauss-Kronrod quadrature, Boost.Math). 1 when no limit.
+  double periastron_allowed_fraction(int planet) const;
 
   double log_density(std::span<const double> theta, int n_planets) const;
   bool in_support(std::span<const double> theta, int n_planets) const;

@@ -13,7 +13,8 @@
 //   [search]      max_planets [3], min_period_d [auto], max_period_d [auto],
 //                 oversample [10], fap_threshold [0.001]
 //   [model]       planets [from search], trend ["none" | "linear" | "quadratic"],
-//                 fit_jitter [true], eccentricity ["uniform" | "beta" | "circular"]
+//                 fit_jitter [true], eccentricity ["uniform" | "beta" | "circular"],
+//                 periastron_outside_star [true]
 //   [priors]      "<param>" = { dist = "...", ... } overriding defaults (prior.h)
 //   [sampler]     walkers [0 = auto], max_steps [200000], ess_target [2000],
 //                 rhat_max [1.01], min_tau_multiple [50], seed [1], checkpoint_steps [1000]
@@ -65,6 +66,8 @@ struct ModelSettings {
   Trend trend = Trend::kNone;
   bool fit_jitter = true;
   EccentricityPriorKind eccentricity = EccentricityPriorKind::kUniform;
+  // Exclude orbits whose periastron lies inside the star (needs [star] mass_msun).
+  bool periastron_outside_star = true;
 };
 
 // One [priors] entry, validated but not yet bound to a layout.

@@ -8,6 +8,7 @@
 #include "apsides/analysis.h"
 #include "apsides/error.h"
 #include "apsides/evidence.h"
+#include "apsides/fit.h"
 #include "apsides/model_priors.h"
 #include "apsides/project.h"
 #include "apsides/results_file.h"
@@ -19,7 +20,9 @@ namespace {
 struct CompareArgs {
   std::string project;
   int max_planets = -1;
+  int min_planets = 0;
   int live_points = -1;
+  int slice_steps = 0;
   long long seed = -1;
   double threshold = std::numeric_limits<double>::quiet_NaN();
   int threads = 2;
@@ -77,8 +80,14 @@ Command register_compare(CLI::App& app) {
   cmd->add_option("project", args->project, "Project TOML file")->required();
   cmd->add_option("--max-planets", args->max_planets, "Largest number of planets compared (default [search] max_planets)")
       ->check(CLI::Range(0, 9));
+  cmd->add_option("--min-planets", args->min_planets,
+                  "Smallest number of planets compared (default 0; the Bayes factor of the smallest model is not shown)")
+      ->check(CLI::Range(0, 9));
   cmd->add_option("--live-points", args->live_points, "Live points (default [evidence] live_points = 400)")
       ->check(CLI::Range(20, 100000));
+  cmd->add_option("--slice-steps", args->slice_steps,
+                  "Slice moves per new live point (default 3 x the number of free parameters)")
+      ->check(CLI::Range(1, 100000));
   cmd->add_option("--seed", args->seed, "Random seed (default [evidence] seed)")->check(CLI::NonNegativeNumber);
   cmd->add_option("--threshold", args->threshold,
                   "Selection: largest k whose ln B against k - 1 exceeds this (default 5)");
@@ -88,29 +97,43 @@ Command register_compare(CLI::App& app) {
   return {cmd, [args]() -> int {
             const Project project = load_project(args->project);
             const VelocityData data = project.load_velocities();
+            const TransitData transits = project.transits.empty() ? TransitData{} : project.load_transits();
             CompareOptions opt;
             opt.max_planets = args->max_planets >= 0 ? args->max_planets : project.search.max_planets;
+            opt.min_planets = args->min_planets;
             opt.nested.live_points = args->live_points > 0 ? args->live_points : project.evidence.live_points;
             opt.nested.seed = args->seed >= 0 ? static_cast<std::uint64_t>(args->seed) : project.evidence.seed;
             opt.nested.threads = args->threads;
+            opt.nested.slice_steps = args->slice_steps;
             opt.bayes_threshold = std::isnan(args->threshold) ? project.evidence.bayes_threshold : args->threshold;
             if (const std::string v = opt.Validate(); !v.empty()) throw InputError(v);
+            // A quick planet search (seconds) gives the nested sampler periods to jump to.
+            if (opt.max_planets > 0) {
+              SearchOptions so = search_options(project);
+              so.max_planets = opt.max_planets;
+              const SearchResult sr = search_planets(search_problem(project, data, transits), so);
+              for (const FitResult& f : sr.fits)
+                for (int j = 0; j < f.layout.n_planets; ++j)
+                  opt.period_hints_days.push_back(f.theta[f.layout.planet_index(j)]);
+              if (std::isfinite(sr.final_peak_period_days)) opt.period_hints_days.push_back(sr.final_peak_period_days);
+            }
             ModelLayout base;
             base.n_instruments = static_cast<int>(data.n_instruments());
             base.trend = project.model.trend;
             base.fit_jitter = project.model.fit_jitter;
             auto priors_for = [&](const ModelLayout& layout) {
-              return build_priors(data, layout, project.search, project.model, project.priors, opt.max_planets);
+              return build_priors(data, layout, project.search, project.model, project.priors, opt.max_planets,
+                          &project.star);
             };
             // Validate every model's priors before the long computation starts.
-            for (int k = 0; k <= opt.max_planets; ++k) {
+            for (int k = opt.min_planets; k <= opt.max_planets; ++k) {
               ModelLayout l = base;
               l.n_planets = k;
               (void)priors_for(l);
             }
             if (!args->common.quiet) {
-              fmt::print(stderr, "Nested sampling for 0..{} planets: {} points, {} instrument(s), {} live points.\n",
-                         opt.max_planets, data.size(), data.n_instruments(), opt.nested.live_points);
+              fmt::print(stderr, "Nested sampling for {}..{} planets: {} points, {} instrument(s), {} live points.\n",
+                         opt.min_planets, opt.max_planets, data.size(), data.n_instruments(), opt.nested.live_points);
             }
             auto bar = std::make_shared<std::unique_ptr<ProgressBar>>();
             int current_k = 0;
@@ -124,7 +147,8 @@ Command register_compare(CLI::App& app) {
                   current_k = k;
                   *bar = std::make_unique<ProgressBar>(fmt::format("evidence k={}", k), 1.0, quiet);
                   if (!quiet && !(*bar)->active()) fmt::print(stderr, "  {}\n", status);
-                });
+                },
+                &transits);
             bar->reset();
             fmt::print("Model comparison by nested sampling ({} points, {} instrument(s), {} live points, seed {}):\n",
                        data.size(), data.n_instruments(), opt.nested.live_points, opt.nested.seed);
@@ -133,7 +157,7 @@ Command register_compare(CLI::App& app) {
             for (const auto& n : r.notes)
               if (n.rfind("prior: ", 0) == 0) fmt::print("  {}\n", n.substr(7));
             if (!r.rows.empty() && r.rows.back().n_planets > 1) fmt::print("Labelling: {}.\n", r.rows.back().ordering_note);
-            fmt::print("Velocities only: transit times are not part of this comparison.\n");
+            if (transits.size() == 0) fmt::print("Velocities only: the project has no transit times.\n");
             for (const auto& n : r.notes)
               if (n.rfind("prior: ", 0) != 0) fmt::print("Note: {}\n", n);
             fmt::print("Time: {:.1f} s.\n", r.seconds);

@@ -143,12 +143,9 @@ Command register_fit(CLI::App& app) {
             std::optional<double> mass;
             if (args->files.size() == 1 && is_project_file(args->files[0])) {
               const Project pr = load_project(args->files[0]);
-              sp.data = pr.load_velocities();
-              print_warnings(sp.data);
-              if (!pr.transits.empty()) sp.transits = pr.load_transits();
-              sp.search = pr.search;
-              sp.model = pr.model;
-              sp.priors = pr.priors;
+              const VelocityData data = pr.load_velocities();
+              print_warnings(data);
+              sp = search_problem(pr, data, pr.transits.empty() ? TransitData{} : pr.load_transits());
               if (pr.star.mass_msun) mass = *pr.star.mass_msun;
               if (args->planets < 0 && !args->search && pr.model.planets) args->planets = *pr.model.planets;
             } else {
