@@ -939,6 +939,22 @@ CompareResult compare_planet_counts(const VelocityData& data, const ModelLayout&
     }
     res.rows.push_back(std::move(row));
   }
+  // A model with one planet more contains the smaller one (K -> 0), so its evidence can
+  // fall below the smaller model's only by the prior mass of a negligible K (about ln 0.1
+  // with the default K prior) -- not by many nats. A much lower ln Z means nested sampling
+  // lost the smaller model's region: say so rather than let the row read as evidence.
+  for (std::size_t k = 1; k < res.rows.size(); ++k) {
+    if (res.rows[k].ln_bayes_vs_previous < -5.0) {
+      res.rows[k].unreliable = true;
+      res.rows[k].bayes_wording = "UNRELIABLE (sampler lost the smaller model's region)";
+      res.notes.push_back(fmt::format(
+          "UNRELIABLE: ln Z({}) is {:.1f} below ln Z({}), although {} planets include {} (a planet with K -> 0): "
+          "nested sampling lost that region. Do not read ln B({} vs {}) as evidence; rerun with more live points "
+          "(--live-points) or another --seed.",
+          res.rows[k].n_planets, -res.rows[k].ln_bayes_vs_previous, res.rows[k - 1].n_planets, res.rows[k].n_planets,
+          res.rows[k - 1].n_planets, res.rows[k].n_planets, res.rows[k - 1].n_planets));
+    }
+  }
   res.selected_n_planets = options.min_planets;
   for (std::size_t k = 1; k < res.rows.size(); ++k) {
     if (res.rows[k].ln_bayes_vs_previous > options.bayes_threshold &&
@@ -991,9 +1007,13 @@ std::string CompareResult::FullReport() const {
       s += fmt::format("{:>7.2f} +- {:4.2f}  {}\n", r.ln_bayes_vs_previous, r.ln_bayes_err, r.bayes_wording);
   }
   s += fmt::format("Selected: {} planet(s) — rule: {}.\n", selected_n_planets, selection_rule);
-  for (const auto& r : rows)
+  for (const auto& r : rows) {
     if (r.nested.termination != NestedTermination::kConverged)
       s += fmt::format("warning: {} planet(s): {}\n", r.n_planets, r.nested.message);
+    if (r.unreliable)
+      s += fmt::format("warning: {} planet(s): ln Z far below the smaller model's, which it contains: unreliable "
+                       "(see the notes)\n", r.n_planets);
+  }
   return s;
 }
 

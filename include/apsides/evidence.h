@@ -226,6 +226,9 @@ struct ComparisonRow {
   long likelihood_calls = 0;
   NestedResult nested;
   std::string ordering_note;
+  // ln Z more than 5 below the model with one planet fewer, which this one contains: the
+  // sampler lost that region and the row is not evidence (a note says so).
+  bool unreliable = false;
 };
 
 // Kass & Raftery 1995 (JASA 90, 773), on ln B: < 0 "favours the simpler model",

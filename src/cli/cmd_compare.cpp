@@ -23,6 +23,7 @@ struct CompareArgs {
   int min_planets = 0;
   int live_points = -1;
   int slice_steps = 0;
+  double jumps_per_step = -1.0;
   long long seed = -1;
   double threshold = std::numeric_limits<double>::quiet_NaN();
   int threads = 2;
@@ -47,6 +48,7 @@ nlohmann::json to_json(const CompareResult& r, const VelocityData& data) {
                     {"ln_bayes_err", finite_or_null(row.ln_bayes_err)},
                     {"bayes_wording", row.bayes_wording},
                     {"termination", to_string(row.nested.termination)},
+                    {"unreliable", row.unreliable},
                     {"likelihood_calls", row.likelihood_calls},
                     {"seconds", row.seconds},
                     {"ordering", row.ordering_note}});
@@ -88,6 +90,9 @@ Command register_compare(CLI::App& app) {
   cmd->add_option("--slice-steps", args->slice_steps,
                   "Slice moves per new live point (default 3 x the number of free parameters)")
       ->check(CLI::Range(1, 100000));
+  cmd->add_option("--jumps-per-step", args->jumps_per_step,
+                  "Period-jump attempts per slice move (default 2; 0 turns the jumps off)")
+      ->check(CLI::Range(0.0, 100.0));
   cmd->add_option("--seed", args->seed, "Random seed (default [evidence] seed)")->check(CLI::NonNegativeNumber);
   cmd->add_option("--threshold", args->threshold,
                   "Selection: largest k whose ln B against k - 1 exceeds this (default 5)");
@@ -105,6 +110,7 @@ Command register_compare(CLI::App& app) {
             opt.nested.seed = args->seed >= 0 ? static_cast<std::uint64_t>(args->seed) : project.evidence.seed;
             opt.nested.threads = args->threads;
             opt.nested.slice_steps = args->slice_steps;
+            if (args->jumps_per_step >= 0.0) opt.nested.jumps_per_step = args->jumps_per_step;
             opt.bayes_threshold = std::isnan(args->threshold) ? project.evidence.bayes_threshold : args->threshold;
             if (const std::string v = opt.Validate(); !v.empty()) throw InputError(v);
             // A quick planet search (seconds) gives the nested sampler periods to jump to.
