@@ -62,6 +62,7 @@ ModelLayout layout_from_names(const std::vector<std::string>& names, std::size_t
     if (n.find(".jitter_ms") != std::string::npos) L.fit_jitter = true;
     if (n == "trend.c1_ms_per_d" && L.trend == Trend::kNone) L.trend = Trend::kLinear;
     if (n == "trend.c2_ms_per_d2") L.trend = Trend::kQuadratic;
+    if (n.size() == 18 && n.substr(1) == ".transit_jitter_d") L.transit_jitter_planets.push_back(n[0] - 'b');
   }
   return L;
 }
@@ -470,9 +471,10 @@ AnalysisOutcome run_analysis(const Project& project, const AnalysisOptions& opti
     base.n_instruments = static_cast<int>(data.n_instruments());
     base.trend = project.model.trend;
     base.fit_jitter = project.model.fit_jitter;
+    base.transit_jitter_planets = project.transit_jitter_planets();
     auto priors_for = [&](const ModelLayout& layout) {
       return build_priors(data, layout, project.search, project.model, project.priors, project.search.max_planets,
-                          &project.star);
+                          &project.star, &transits);
     };
     // The comparison is the slow stage: cache it (keyed by the project text and the
     // options) so that --resume does not redo it.

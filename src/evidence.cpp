@@ -690,6 +690,7 @@ RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const Mo
   // priors that planet would have, so every model explains the same data.
   struct TransitTerm {
     std::size_t period_index, t_conj_index;
+    long jitter_index;  // -1: none
     std::shared_ptr<const TransitTimingLikelihood> like;
   };
   std::vector<TransitTerm> terms;
@@ -702,7 +703,8 @@ RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const Mo
       if (td.size() == 0) continue;
       auto like = std::make_shared<const TransitTimingLikelihood>(td, model.data().reference_epoch_bjd);
       if (j < k) {
-        terms.push_back({static_cast<std::size_t>(5 * j), static_cast<std::size_t>(5 * j + 4), like});
+        terms.push_back({static_cast<std::size_t>(5 * j), static_cast<std::size_t>(5 * j + 4),
+                         layout.transit_jitter_index(j), like});
         continue;
       }
       if (transits->wide_priors.parameter.size() < static_cast<std::size_t>(5 * j + 5))
@@ -713,7 +715,7 @@ RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const Mo
       slots.push_back({SlotKind::kTransitPhase, n_total + 1, j});
       extra_period_priors.push_back(pp);
       extra_t_priors.push_back(tp);
-      terms.push_back({n_total, n_total + 1, like});
+      terms.push_back({n_total, n_total + 1, layout.transit_jitter_index(j), like});
       all_names.push_back(planet_label(j) + ".period_d");
       all_names.push_back(planet_label(j) + ".t_conj_d");
       out.prior_notes.push_back(fmt::format("{}.period_d  {} (transit times only: no velocity signal in this model)",
@@ -830,7 +832,9 @@ RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const Mo
       }
     double l = m->log_likelihood(theta.first(n_params));
     if (!std::isfinite(l)) return l;
-    for (const auto& t : terms) l += t.like->log_likelihood(theta[t.period_index], theta[t.t_conj_index]);
+    for (const auto& t : terms)
+      l += t.like->log_likelihood(theta[t.period_index], theta[t.t_conj_index],
+                                  t.jitter_index >= 0 ? theta[static_cast<std::size_t>(t.jitter_index)] : 0.0);
     return l;
   };
   return out;

@@ -120,7 +120,7 @@ class Objective {
     lnl = -0.5 * (lnl + static_cast<double>(n_) * std::log(kTwoPi));
     for (const auto& [j, term] : transit_terms_) {
       const std::size_t k = L_.planet_index(j);
-      lnl += term->log_likelihood(theta[k], theta[k + 4]);
+      lnl += term->log_likelihood(theta[k], theta[k + 4], transit_jitter(theta, j));
     }
     if (!std::isfinite(lnl)) return -kInf;
     double value = lnl - penalty;
@@ -164,9 +164,13 @@ class Objective {
     double s = 0.0;
     for (const auto& [j, term] : transit_terms_) {
       const std::size_t k = L_.planet_index(j);
-      s += term->log_likelihood(theta[k], theta[k + 4]);
+      s += term->log_likelihood(theta[k], theta[k + 4], transit_jitter(theta, j));
     }
     return s;
+  }
+  double transit_jitter(const std::vector<double>& theta, int planet) const {
+    const long i = L_.transit_jitter_index(planet);
+    return i >= 0 ? theta[static_cast<std::size_t>(i)] : 0.0;
   }
 
  private:
@@ -294,6 +298,8 @@ double initial_step(const FitProblem& pb, const std::vector<double>& theta, std:
       default: return 0.05 * P;
     }
   }
+  for (int j : L.transit_jitter_planets)
+    if (static_cast<long>(i) == L.transit_jitter_index(j)) return 0.3 * std::max(width / 8.0, 1e-6);
   return std::max(0.1 * std::fabs(theta[i]), 0.2 * std::max(width * 1e-3, 0.1));
 }
 
@@ -892,8 +898,9 @@ FitProblem make_fit_problem(const SearchProblem& sp, int n_planets) {
   pb.layout.n_instruments = static_cast<int>(sp.data.n_instruments());
   pb.layout.trend = sp.model.trend;
   pb.layout.fit_jitter = sp.model.fit_jitter;
+  pb.layout.transit_jitter_planets = sp.transit_jitter_planets;
   pb.priors = build_priors(sp.data, pb.layout, sp.search, sp.model, sp.priors, std::max(n_planets, sp.search.max_planets),
-                           &sp.star);
+                           &sp.star, &sp.transits);
   pb.priors.label_fixed = sp.transits.planets_with_times(n_planets);
   return pb;
 }
@@ -956,6 +963,7 @@ SearchProblem search_problem(const Project& project, const VelocityData& data, c
   sp.model = project.model;
   sp.priors = project.priors;
   sp.star = project.star;
+  sp.transit_jitter_planets = project.transit_jitter_planets();
   return sp;
 }
 

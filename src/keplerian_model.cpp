@@ -93,7 +93,15 @@ Trend parse_trend(const std::string& text, const std::string& where) {
 
 std::size_t ModelLayout::n_params() const {
   return static_cast<std::size_t>(kPlanetParams * n_planets + per_instrument() * n_instruments +
-                                  trend_order());
+                                  trend_order()) +
+         transit_jitter_planets.size();
+}
+long ModelLayout::transit_jitter_index(int planet) const {
+  const std::size_t base = static_cast<std::size_t>(kPlanetParams * n_planets + per_instrument() * n_instruments +
+                                                    trend_order());
+  for (std::size_t q = 0; q < transit_jitter_planets.size(); ++q)
+    if (transit_jitter_planets[q] == planet) return static_cast<long>(base + q);
+  return -1;
 }
 std::size_t ModelLayout::offset_index(int instrument) const {
   return static_cast<std::size_t>(kPlanetParams * n_planets + per_instrument() * instrument);
@@ -125,6 +133,7 @@ std::vector<std::string> ModelLayout::names(const std::vector<std::string>& inst
   }
   if (trend_order() >= 1) out.push_back("trend.c1_ms_per_d");
   if (trend_order() >= 2) out.push_back("trend.c2_ms_per_d2");
+  for (int j : transit_jitter_planets) out.push_back(planet_label(j) + ".transit_jitter_d");
   return out;
 }
 
@@ -139,6 +148,7 @@ std::vector<std::string> ModelLayout::units() const {
   }
   if (trend_order() >= 1) out.push_back("m/s/d");
   if (trend_order() >= 2) out.push_back("m/s/d^2");
+  for (std::size_t q = 0; q < transit_jitter_planets.size(); ++q) out.push_back("d");
   return out;
 }
 

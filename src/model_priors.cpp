@@ -125,7 +125,8 @@ PeriodRange default_period_range(const VelocityData& data, const SearchSettings&
 
 ModelPriors build_priors(const VelocityData& data, const ModelLayout& layout,
                          const SearchSettings& search, const ModelSettings& model,
-                         const std::vector<PriorSpec>& overrides, int planets_allowed, const StarSpec* star) {
+                         const std::vector<PriorSpec>& overrides, int planets_allowed, const StarSpec* star,
+                         const TransitData* transits) {
   const DataStats st = data_stats(data);
   const PeriodRange pr = default_period_range(data, search);
   const std::vector<std::string> names = layout.names(data.instrument_names);
@@ -162,6 +163,19 @@ ModelPriors build_priors(const VelocityData& data, const ModelLayout& layout,
     mp.parameter[layout.trend_index(1)] = Prior::uniform(-10.0 * rng / base, 10.0 * rng / base);
   if (layout.trend_order() >= 2)
     mp.parameter[layout.trend_index(2)] = Prior::uniform(-10.0 * rng / (base * base), 10.0 * rng / (base * base));
+
+  for (int j : layout.transit_jitter_planets) {
+    double scale = 1e-3;
+    if (transits != nullptr) {
+      const TransitData td = transits->for_planet(planet_label(j));
+      if (td.size() > 0) {
+        std::vector<double> u = td.uncertainty_days;
+        std::nth_element(u.begin(), u.begin() + static_cast<std::ptrdiff_t>(u.size() / 2), u.end());
+        scale = u[u.size() / 2];
+      }
+    }
+    mp.parameter[static_cast<std::size_t>(layout.transit_jitter_index(j))] = Prior::half_normal(scale);
+  }
 
   // Overrides.
   const int allowed = std::max(planets_allowed < 0 ? layout.n_planets : planets_allowed, layout.n_planets);
@@ -202,7 +216,8 @@ ModelPriors build_priors(const VelocityData& data, const ModelLayout& layout,
     }
     if (is_planet && slot == 0) check_positive_support(spec.prior, key, true);
     if (is_planet && slot == 1) check_positive_support(spec.prior, key, false);
-    if (!is_planet && ends_with(key, ".jitter_ms")) check_positive_support(spec.prior, key, false);
+    if (!is_planet && (ends_with(key, ".jitter_ms") || ends_with(key, ".transit_jitter_d")))
+      check_positive_support(spec.prior, key, false);
     if (is_planet) {
       const int j = static_cast<int>(idx / 5);
       if (j >= layout.n_planets) continue;  // for a larger model of this run

@@ -271,7 +271,7 @@ Project parse_project(const std::string& text, const std::string& path, const st
     s.origin = fmt::format("{}:{}", path, t->get("file")->source().begin.line);
     s.planet = get_string(ctx, *t, "transits", "planet", "b");
     if (s.planet.size() != 1 || s.planet[0] < 'b' || s.planet[0] > 'z')
-      throw InputError(fmt::format("{} is '{}'; planets are labelled b, c, d, ... by increasing period", ctx.where(*t->get("planet"), "transits.planet"), s.planet));
+      throw InputError(fmt::format("{} is '{}'; planets are labelled b, c, d, ... (a letter from b to z)", ctx.where(*t->get("planet"), "transits.planet"), s.planet));
     s.fit_jitter = get_bool(ctx, *t, "transits", "fit_jitter", false);
     pr.transits.push_back(s);
   }
@@ -431,4 +431,16 @@ TransitData Project::load_transits() const {
   return all;
 }
 
+}  // namespace apsides
+
+namespace apsides {
+std::vector<int> Project::transit_jitter_planets() const {
+  std::vector<int> out;
+  for (const TransitSource& t : transits) {
+    const int j = t.planet.size() == 1 ? t.planet[0] - 'b' : -1;
+    if (t.fit_jitter && j >= 0 && std::find(out.begin(), out.end(), j) == out.end()) out.push_back(j);
+  }
+  std::sort(out.begin(), out.end());
+  return out;
+}
 }  // namespace apsides

@@ -38,7 +38,8 @@ double JointLikelihood::operator()(std::span<const double> theta) const {
   if (!std::isfinite(l)) return l;
   for (const auto& [j, term] : impl_->transit_terms) {
     const std::size_t k = impl_->layout.planet_index(j);
-    l += term->log_likelihood(theta[k], theta[k + 4]);
+    const long ji = impl_->layout.transit_jitter_index(j);
+    l += term->log_likelihood(theta[k], theta[k + 4], ji >= 0 ? theta[static_cast<std::size_t>(ji)] : 0.0);
   }
   return l;
 }
@@ -90,6 +91,8 @@ std::vector<double> ball_scale(const ModelLayout& layout, std::span<const double
   }
   for (std::size_t i = layout.planet_index(layout.n_planets); i < theta.size(); ++i)
     s[i] = 1e-3 * std::abs(theta[i]) + 1e-3;
+  for (int j : layout.transit_jitter_planets)
+    s[static_cast<std::size_t>(layout.transit_jitter_index(j))] = 1e-3 * std::abs(theta[static_cast<std::size_t>(layout.transit_jitter_index(j))]) + 1e-7;
   return s;
 }
 

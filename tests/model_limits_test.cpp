@@ -189,4 +189,49 @@ TEST_SUITE("model_limits") {
     // The velocity signal of b is then very strongly supported (Kass & Raftery 1995).
     CHECK(r.rows[1].ln_bayes_vs_previous > 5.0);
   }
+
+  TEST_CASE("model_limits: a transit-time jitter is fitted jointly and matches scipy's maximum likelihood on the times alone") {
+    // The demo's transit times with extra Gaussian scatter of 0.002 d (seeded, numpy),
+    // fitted jointly with the velocities ([[transits]] fit_jitter = true). The transit
+    // times fix P and T_conj far better than the velocities, so the joint MAP jitter
+    // should equal the maximum-likelihood jitter of a linear ephemeris fitted to the times
+    // alone (scipy.optimize), up to the gentle half-normal prior.
+    const std::string dir = test::temp_dir("transit_jitter");
+    const std::string demo = test::source_dir() + "/datasets_synthetic/demo";
+    const auto py = test::run_python(
+        "import numpy as np, shutil, scipy.optimize as so\n"
+        "src = '" + demo + "'; dst = '" + dir + "'\n"
+        "for f in ['velocities_Kestrel.csv', 'velocities_Tern.csv', 'velocities_Petrel.csv']: shutil.copy(f'{src}/{f}', dst)\n"
+        "d = np.genfromtxt(f'{src}/transits.csv', delimiter=',', names=True)\n"
+        "rng = np.random.default_rng(7)\n"
+        "t = d['t_mid_bjd'] + rng.normal(0, 0.002, d.size)\n"
+        "with open(f'{dst}/transits.csv', 'w') as fh:\n"
+        "    fh.write('epoch,t_mid_bjd,uncertainty_d\\n')\n"
+        "    for n, ti, s in zip(d['epoch'].astype(int), t, d['uncertainty_d']): fh.write(f'{n},{ti:.7f},{s:.7f}\\n')\n"
+        "proj = open(f'{src}/project.toml').read().replace('planet = \"b\"', 'planet = \"b\"\\nfit_jitter = true')\n"
+        "open(f'{dst}/project.toml', 'w').write(proj)\n"
+        "n = d['epoch']; s = d['uncertainty_d']; t0 = t[0]\n"
+        "def nll(x):\n"
+        "    v = s**2 + x[2]**2\n"
+        "    r = t - t0 - x[0] - n * x[1]\n"
+        "    return 0.5 * np.sum(r * r / v + np.log(v))\n"
+        "p0 = np.polyfit(n, t - t0, 1)\n"
+        "best = so.minimize(nll, [p0[1], p0[0], 0.001], method='Nelder-Mead', options={'xatol': 1e-12, 'fatol': 1e-12, 'maxiter': 40000})\n"
+        "print(repr(abs(best.x[2])))\n");
+    REQUIRE(py.status == 0);
+    const double scipy_jitter = std::stod(py.output);
+    const Project project = load_project(dir + "/project.toml");
+    REQUIRE(project.transit_jitter_planets() == std::vector<int>{0});
+    const VelocityData data = project.load_velocities();
+    const SearchProblem sp = search_problem(project, data, project.load_transits());
+    const FitProblem pb = make_fit_problem(sp, 2);
+    const long ji = pb.layout.transit_jitter_index(0);
+    REQUIRE(ji == static_cast<long>(pb.layout.n_params()) - 1);
+    CHECK(pb.layout.names(data.instrument_names).back() == "b.transit_jitter_d");
+    const FitResult fit = fit_map(pb, FitOptions{});
+    CAPTURE(fit.FullReport());
+    CAPTURE(scipy_jitter);
+    CHECK(fit.theta[static_cast<std::size_t>(ji)] == doctest::Approx(scipy_jitter).epsilon(0.15));
+    CHECK(fit.theta[static_cast<std::size_t>(ji)] > 0.001);
+  }
 }

@@ -186,6 +186,7 @@ struct SearchProblem {
   ModelSettings model;             // trend, fit_jitter, eccentricity prior
   std::vector<PriorSpec> priors;   // [priors] overrides
   StarSpec star;                   // host star: the periastron limit of the priors
+  std::vector<int> transit_jitter_planets;  // [[transits]] fit_jitter: planets (b = 0)
 };
 
 // The search problem of a project (its data, transit times, [search], [model], [priors]),

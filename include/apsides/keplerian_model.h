@@ -52,7 +52,10 @@ double planet_velocity(const Planet& planet, double t_days);
 // Which parameters the model has and where they sit in the parameter vector theta:
 //   [planet 0: P, K, sqrt(e)cos w, sqrt(e)sin w, t_conj] [planet 1: ...] ...
 //   [instrument 0: offset, jitter] [instrument 1: ...] ... [trend c1, c2]
-// Without jitters (fit_jitter = false) instruments have only an offset.
+//   [transit-time jitter of each planet in transit_jitter_planets, days]
+// Without jitters (fit_jitter = false) instruments have only an offset. Transit-time
+// jitters belong to the transit-time likelihood (sampling_run.h, evidence.h, fit.h); the
+// velocity model ignores them.
 enum class Trend { kNone = 0, kLinear = 1, kQuadratic = 2 };
 std::string to_string(Trend trend);
 Trend parse_trend(const std::string& text, const std::string& where);
@@ -62,6 +65,9 @@ struct ModelLayout {
   int n_instruments = 1;
   Trend trend = Trend::kNone;
   bool fit_jitter = true;
+  // Planets (by letter index) whose transit times get a fitted extra scatter
+  // ([[transits]] fit_jitter = true), whether or not the model has that planet.
+  std::vector<int> transit_jitter_planets;
 
   static constexpr int kPlanetParams = 5;
   int per_instrument() const { return fit_jitter ? 2 : 1; }
@@ -71,6 +77,8 @@ struct ModelLayout {
   std::size_t offset_index(int instrument) const;
   std::size_t jitter_index(int instrument) const;  // only when fit_jitter
   std::size_t trend_index(int power) const;        // power 1 or 2
+  // Index of planet j's transit-time jitter, or -1 when it has none.
+  long transit_jitter_index(int planet) const;
   // Parameter names ("b.period_d", "north.offset_ms", "trend.c1_ms_per_d", ...) and
   // their units, in theta order. Planets are labelled b, c, d, ... by position.
   std::vector<std::string> names(const std::vector<std::string>& instrument_names) const;

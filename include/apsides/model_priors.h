@@ -30,6 +30,9 @@
 //                    else estimated from the mass as R = M^0.8 (main-sequence relation,
 //                    common practice; stated in describe_priors). Without a star mass there
 //                    is no limit.
+//   <p>.transit_jitter_d  half-normal(sd = the median stated uncertainty of that planet's
+//                    transit times, 1e-3 d without them): extra scatter of the transit
+//                    times (timing noise, underestimated errors) in quadrature.
 //   trend.c1_ms_per_d  uniform(+-10 x range / baseline);
 //   trend.c2_ms_per_d2 uniform(+-10 x range / baseline^2).
 //
@@ -70,7 +73,7 @@ PeriodRange default_period_range(const VelocityData& data, const SearchSettings&
 ModelPriors build_priors(const VelocityData& data, const ModelLayout& layout,
                          const SearchSettings& search, const ModelSettings& model,
                          const std::vector<PriorSpec>& overrides, int planets_allowed = -1,
-                         const StarSpec* star = nullptr);
+                         const StarSpec* star = nullptr, const TransitData* transits = nullptr);
 
 // The periastron limit's radius in solar radii for a star ([star] radius_rsun, else
 // M^0.8), and whether it was estimated; nullopt without a mass.

@@ -111,6 +111,8 @@ struct Project {
   // ("<instrument>.offset_ms", "<instrument>.jitter_ms") names one present in the data.
   VelocityData load_velocities() const;
   TransitData load_transits() const;     // all [[transits]] files, planet label per file
+  // Planets (letter index, b = 0) whose [[transits]] block sets fit_jitter = true.
+  std::vector<int> transit_jitter_planets() const;
 };
 
 // Reads and validates a project file; throws InputError ("file:line: key: problem").

@@ -127,9 +127,10 @@ Command register_compare(CLI::App& app) {
             base.n_instruments = static_cast<int>(data.n_instruments());
             base.trend = project.model.trend;
             base.fit_jitter = project.model.fit_jitter;
+            base.transit_jitter_planets = project.transit_jitter_planets();
             auto priors_for = [&](const ModelLayout& layout) {
               return build_priors(data, layout, project.search, project.model, project.priors, opt.max_planets,
-                          &project.star);
+                          &project.star, &transits);
             };
             // Validate every model's priors before the long computation starts.
             for (int k = opt.min_planets; k <= opt.max_planets; ++k) {

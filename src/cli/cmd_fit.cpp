@@ -109,6 +109,10 @@ void print_fit(const FitResult& fit, const std::vector<PlanetSummary>& planets, 
   }
   if (L.trend_order() >= 1) fmt::print("trend c1 = {:.6g} m/s/d\n", fit.theta[L.trend_index(1)]);
   if (L.trend_order() >= 2) fmt::print("trend c2 = {:.6g} m/s/d^2\n", fit.theta[L.trend_index(2)]);
+  for (int j : L.transit_jitter_planets) {
+    const double jit = fit.theta[static_cast<std::size_t>(L.transit_jitter_index(j))];
+    fmt::print("transit-time jitter {}: {:.3g} d ({:.2f} min)\n", planet_label(j), jit, jit * 1440.0);
+  }
   fmt::print("\nln L = {:.4f}   chi2 = {:.3f}   k = {}   n = {}   BIC = {:.3f}   AICc = {:.3f}\n", fit.log_likelihood,
              fit.chi2, fit.n_free, fit.n_points, fit.bic, fit.aicc);
 }
