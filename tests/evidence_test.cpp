@@ -7,6 +7,8 @@
 #include "apsides/constants.h"
 #include "apsides/error.h"
 #include "apsides/evidence.h"
+#include "apsides/fit.h"
+#include "apsides/sampler.h"
 #include "apsides/simulate.h"
 
 using namespace apsides;
@@ -225,5 +227,72 @@ TEST_SUITE("evidence") {
     // Labelled by increasing period.
     CHECK(two.rows[2].nested.weighted_quantile(0, 0.5) == doctest::Approx(9.1).epsilon(0.01));
     CHECK(two.rows[2].nested.weighted_quantile(5, 0.5) == doctest::Approx(61.0).epsilon(0.02));
+  }
+
+  TEST_CASE("evidence: nested sampling's posterior agrees with the ensemble sampler's (medians within 0.2 sigma)") {
+    // The same one-planet problem (data, priors, likelihood) sampled both ways; the
+    // ensemble chain is the reference: its kept half after convergence.
+    SimPlanet b;
+    b.period_d = 23.4;
+    b.K_ms = 8.0;
+    b.ecc = 0.1;
+    b.t_conj_bjd = 2460003.0;
+    const VelocityData data = simulated({b}, 21);
+    ModelLayout layout;
+    layout.n_planets = 1;
+    const ModelPriors priors = test_priors(layout);
+    const KeplerianModel model(data, layout);
+
+    NestedOptions no;
+    no.live_points = 400;
+    no.seed = 8;
+    const RvEvidenceProblem prob = make_rv_evidence_problem(model, priors);
+    const NestedResult ns = run_nested_sampling(prob.problem, no);
+    REQUIRE(ns.termination == NestedTermination::kConverged);
+
+    FitProblem fp;
+    fp.data = data;
+    fp.layout = layout;
+    fp.priors = priors;
+    const FitResult map = fit_map(fp, FitOptions{});
+    const LogDensity log_post = [&](std::span<const double> th) {
+      const double lp = priors.log_density(th, 1);
+      return std::isfinite(lp) ? lp + model.log_likelihood(th) : lp;
+    };
+    SamplerOptions so;
+    so.walkers = 32;
+    so.seed = 9;
+    so.max_steps = 60000;
+    so.ess_target = 3000;
+    SamplerState start;
+    std::vector<double> scale(layout.n_params(), 1e-3);
+    scale[0] = 1e-4;
+    start.positions = initial_ball(log_post, map.theta, scale, so.walkers, so.seed);
+    REQUIRE_FALSE(start.positions.empty());
+    struct Keep : SamplerObserver {
+      std::vector<double> rows;
+      void on_step(long, std::span<const double> p, std::span<const double>) override { rows.insert(rows.end(), p.begin(), p.end()); }
+      void on_checkpoint(const SamplerState&) override {}
+    } keep;
+    const SamplerResult sr = run_sampler(log_post, layout.n_params(), so, start, &keep);
+    REQUIRE(sr.termination == SamplerTermination::kConverged);
+    const std::size_t dim = layout.n_params();
+    const std::size_t per_step = dim * static_cast<std::size_t>(so.walkers);
+    const std::size_t first = static_cast<std::size_t>(sr.burn_in_steps) * per_step;
+    // P, K, offset, jitter (the parameters a user reads off first).
+    for (std::size_t i : {std::size_t{0}, std::size_t{1}, std::size_t{5}, std::size_t{6}}) {
+      std::vector<double> x;
+      for (std::size_t r = first + i; r < keep.rows.size(); r += dim) x.push_back(keep.rows[r]);
+      std::sort(x.begin(), x.end());
+      const double med = x[x.size() / 2];
+      const double sigma = 0.5 * (x[static_cast<std::size_t>(0.8413 * static_cast<double>(x.size()))] -
+                                  x[static_cast<std::size_t>(0.1587 * static_cast<double>(x.size()))]);
+      const double med_ns = ns.weighted_quantile(i, 0.5);
+      CAPTURE(i);
+      CAPTURE(med);
+      CAPTURE(med_ns);
+      CAPTURE(sigma);
+      CHECK(std::fabs(med_ns - med) < 0.2 * sigma);
+    }
   }
 }
