@@ -399,7 +399,7 @@ TEST_CASE("other project values out of range are rejected naming the key") {
   Scratch s("ranges");
   const std::string head = "[[velocities]]\nfile = \"rv.csv\"\n";
   CHECK(s.project_error(head + "[[transits]]\nfile = \"t.csv\"\nplanet = \"B\"\n") ==
-        "project.toml:5: transits.planet is 'B'; planets are labelled b, c, d, ... by increasing period");
+        "project.toml:5: transits.planet is 'B'; planets are labelled b, c, d, ... (a letter from b to z)");
   CHECK(s.project_error(head + "[model]\nplanets = -1\n") == "project.toml:4: model.planets is -1; it must be between 0 and 10");
   CHECK(s.project_error(head + "[sampler]\nwalkers = 3\n") ==
         "project.toml:4: sampler.walkers is 3; it must be an even number >= 4 (or 0 for automatic)");
