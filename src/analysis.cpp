@@ -430,7 +430,8 @@ AnalysisOutcome run_analysis(const Project& project, const AnalysisOptions& opti
   }
 
   // 2. Planet search, with the residual periodogram of each step.
-  const SearchResult search = search_planets(search_problem(project, data, transits), search_options(project));
+  const SearchProblem problem = search_problem(project, data, transits);
+  const SearchResult search = search_planets(problem, search_options(project));
   stage("search", search.BriefReport());
   std::vector<PeriodogramPanel> step_panels;
   for (std::size_t k = 0; k < search.fits.size() && k < 7; ++k) {
@@ -463,19 +464,9 @@ AnalysisOutcome run_analysis(const Project& project, const AnalysisOptions& opti
     copt.nested.seed = project.evidence.seed;
     copt.nested.threads = options.threads;
     copt.bayes_threshold = project.evidence.bayes_threshold;
-    // The search's periods (every step) and the peak that stopped it: mode-jump targets.
-    for (const FitResult& f : search.fits)
-      for (int j = 0; j < f.layout.n_planets; ++j) copt.period_hints_days.push_back(f.theta[f.layout.planet_index(j)]);
-    if (std::isfinite(search.final_peak_period_days)) copt.period_hints_days.push_back(search.final_peak_period_days);
-    ModelLayout base;
-    base.n_instruments = static_cast<int>(data.n_instruments());
-    base.trend = project.model.trend;
-    base.fit_jitter = project.model.fit_jitter;
-    base.transit_jitter_planets = project.transit_jitter_planets();
-    auto priors_for = [&](const ModelLayout& layout) {
-      return build_priors(data, layout, project.search, project.model, project.priors, project.search.max_planets,
-                          &project.star, &transits);
-    };
+    copt.period_hints_days = search_periods(search);
+    const ModelLayout base = problem_layout(problem, 0);
+    auto priors_for = [&](const ModelLayout& layout) { return problem_priors(problem, layout); };
     // The comparison is the slow stage: cache it (keyed by the project text and the
     // options) so that --resume does not redo it.
     const std::string key = fmt::format("v2|{}|{}|{}|{}|{}|{}", std::hash<std::string>{}(project.text), copt.min_planets,

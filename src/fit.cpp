@@ -890,18 +890,37 @@ std::string SearchResult::FullReport() const {
 
 // ---- Search ---------------------------------------------------------------------------
 
+ModelLayout problem_layout(const SearchProblem& sp, int n_planets) {
+  ModelLayout layout;
+  layout.n_planets = n_planets;
+  layout.n_instruments = static_cast<int>(sp.data.n_instruments());
+  layout.trend = sp.model.trend;
+  layout.fit_jitter = sp.model.fit_jitter;
+  layout.transit_jitter_planets = sp.transit_jitter_planets;
+  return layout;
+}
+
+ModelPriors problem_priors(const SearchProblem& sp, const ModelLayout& layout) {
+  ModelPriors priors = build_priors(sp.data, layout, sp.search, sp.model, sp.priors,
+                                    std::max(layout.n_planets, sp.search.max_planets), &sp.star, &sp.transits);
+  priors.label_fixed = sp.transits.planets_with_times(layout.n_planets);
+  return priors;
+}
+
+std::vector<double> search_periods(const SearchResult& result) {
+  std::vector<double> out;
+  for (const FitResult& f : result.fits)
+    for (int j = 0; j < f.layout.n_planets; ++j) out.push_back(f.theta[f.layout.planet_index(j)]);
+  if (std::isfinite(result.final_peak_period_days)) out.push_back(result.final_peak_period_days);
+  return out;
+}
+
 FitProblem make_fit_problem(const SearchProblem& sp, int n_planets) {
   FitProblem pb;
   pb.data = sp.data;
   pb.transits = sp.transits;
-  pb.layout.n_planets = n_planets;
-  pb.layout.n_instruments = static_cast<int>(sp.data.n_instruments());
-  pb.layout.trend = sp.model.trend;
-  pb.layout.fit_jitter = sp.model.fit_jitter;
-  pb.layout.transit_jitter_planets = sp.transit_jitter_planets;
-  pb.priors = build_priors(sp.data, pb.layout, sp.search, sp.model, sp.priors, std::max(n_planets, sp.search.max_planets),
-                           &sp.star, &sp.transits);
-  pb.priors.label_fixed = sp.transits.planets_with_times(n_planets);
+  pb.layout = problem_layout(sp, n_planets);
+  pb.priors = problem_priors(sp, pb.layout);
   return pb;
 }
 

@@ -194,8 +194,19 @@ struct SearchProblem {
 SearchProblem search_problem(const Project& project, const VelocityData& data, const TransitData& transits);
 SearchOptions search_options(const Project& project);
 
+// The model layout for `n_planets` planets (instruments, trend, jitters, transit-time
+// jitters) and its priors (build_priors with the star and transit times; planets named
+// by transit times keep their letter). The fit, the sampler and the comparison all use
+// these, so they see one model.
+ModelLayout problem_layout(const SearchProblem& problem, int n_planets);
+ModelPriors problem_priors(const SearchProblem& problem, const ModelLayout& layout);
+
 // Builds the FitProblem for `n_planets` planets from a SearchProblem.
 FitProblem make_fit_problem(const SearchProblem& problem, int n_planets);
+
+// Every planet period a search found (all its steps) and the residual peak that stopped
+// it: targets for nested sampling's mode jumps (CompareOptions::period_hints_days).
+std::vector<double> search_periods(const SearchResult& result);
 
 SearchResult search_planets(const SearchProblem& problem, const SearchOptions& options);
 

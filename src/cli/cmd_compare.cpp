@@ -113,30 +113,21 @@ Command register_compare(CLI::App& app) {
             if (args->jumps_per_step >= 0.0) opt.nested.jumps_per_step = args->jumps_per_step;
             opt.bayes_threshold = std::isnan(args->threshold) ? project.evidence.bayes_threshold : args->threshold;
             if (const std::string v = opt.Validate(); !v.empty()) throw InputError(v);
-            // A quick planet search (seconds) gives the nested sampler periods to jump to.
-            if (opt.max_planets > 0) {
-              SearchOptions so = search_options(project);
-              so.max_planets = opt.max_planets;
-              const SearchResult sr = search_planets(search_problem(project, data, transits), so);
-              for (const FitResult& f : sr.fits)
-                for (int j = 0; j < f.layout.n_planets; ++j)
-                  opt.period_hints_days.push_back(f.theta[f.layout.planet_index(j)]);
-              if (std::isfinite(sr.final_peak_period_days)) opt.period_hints_days.push_back(sr.final_peak_period_days);
-            }
-            ModelLayout base;
-            base.n_instruments = static_cast<int>(data.n_instruments());
-            base.trend = project.model.trend;
-            base.fit_jitter = project.model.fit_jitter;
-            base.transit_jitter_planets = project.transit_jitter_planets();
-            auto priors_for = [&](const ModelLayout& layout) {
-              return build_priors(data, layout, project.search, project.model, project.priors, opt.max_planets,
-                          &project.star, &transits);
-            };
+            SearchProblem problem = search_problem(project, data, transits);
+            problem.search.max_planets = opt.max_planets;  // [priors] may name planets up to this one
+            const ModelLayout base = problem_layout(problem, 0);
+            auto priors_for = [&](const ModelLayout& layout) { return problem_priors(problem, layout); };
             // Validate every model's priors before the long computation starts.
             for (int k = opt.min_planets; k <= opt.max_planets; ++k) {
               ModelLayout l = base;
               l.n_planets = k;
               (void)priors_for(l);
+            }
+            // A quick planet search (seconds) gives the nested sampler periods to jump to.
+            if (opt.max_planets > 0) {
+              SearchOptions so = search_options(project);
+              so.max_planets = opt.max_planets;
+              opt.period_hints_days = search_periods(search_planets(problem, so));
             }
             if (!args->common.quiet) {
               fmt::print(stderr, "Nested sampling for {}..{} planets: {} points, {} instrument(s), {} live points.\n",
