@@ -173,9 +173,9 @@ void check_enough_points(const VelocityData& data, const ModelLayout& layout) {
   const std::size_t k = layout.n_params();
   if (data.size() <= k) {
     throw InputError(fmt::format(
-        "{} velocities are too few for a model with {} planet(s), {} instrument(s){}{}: it has "
+        "{}: {} velocities are too few for a model with {} planet(s), {} instrument(s){}{}: it has "
         "{} free parameters and needs more than {} points",
-        data.size(), layout.n_planets, layout.n_instruments, layout.fit_jitter ? " with jitter" : "",
+        data.sources(), data.size(), layout.n_planets, layout.n_instruments, layout.fit_jitter ? " with jitter" : "",
         layout.trend == Trend::kNone ? "" : fmt::format(" and a {} trend", to_string(layout.trend)), k, k));
   }
   if (layout.fit_jitter) {
@@ -269,6 +269,17 @@ VelocityData load_velocities(const std::vector<std::string>& paths,
     files.push_back(read_velocity_file(paths[i], i < options.size() ? options[i] : VelocityFileOptions{}));
   }
   return combine_velocities(files);
+}
+
+std::string VelocityData::sources() const {
+  std::vector<std::string> files;
+  for (const std::string& o : origin) {
+    const std::string f = o.substr(0, o.rfind(':') == std::string::npos ? o.size() : o.rfind(':'));
+    if (std::find(files.begin(), files.end(), f) == files.end()) files.push_back(f);
+  }
+  std::string out;
+  for (const auto& f : files) out += (out.empty() ? "" : ", ") + f;
+  return out.empty() ? std::string("the data") : out;
 }
 
 std::vector<bool> TransitData::planets_with_times(int n_planets) const {

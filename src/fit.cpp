@@ -689,8 +689,8 @@ FitResult fit_map(const FitProblem& pb, const FitOptions& opt) {
     for (const Prior& p : pb.priors.parameter)
       if (p.kind != PriorKind::kFixed) ++k;
     if (static_cast<int>(pb.data.size() + obj.n_transit_points()) <= k)
-      throw InputError(fmt::format("fit: {} data points are too few for {} free parameters ({} planet(s))",
-                                   pb.data.size(), k, L.n_planets));
+      throw InputError(fmt::format("{}: {} data points are too few to fit {} free parameters ({} planet(s))",
+                                   pb.data.sources(), pb.data.size() + obj.n_transit_points(), k, L.n_planets));
   }
   for (std::size_t s = 0; s < opt.starts.size(); ++s) {
     if (opt.starts[s].size() != L.n_params())

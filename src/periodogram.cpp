@@ -293,8 +293,8 @@ PeriodogramResult run(const Prepared& p, const VelocityData& data, const Periodo
   const std::size_t n = p.t_raw.size();
   const std::size_t need = static_cast<std::size_t>(p.n_groups) + 3;
   if (n < need)
-    throw InputError(fmt::format("periodogram: {} velocities from {} instrument(s); at least {} are needed", n,
-                                 p.n_groups, need));
+    throw InputError(fmt::format("{}: {} velocities from {} instrument(s); a periodogram needs at least {}",
+                                 data.sources(), n, p.n_groups, need));
   const FrequencyGrid grid = default_grid(data, options);
   if (grid.nf < 3)
     throw InputError(fmt::format(

@@ -372,15 +372,22 @@ TEST_CASE("too few points for the model are rejected: n must exceed the free par
   layout.n_planets = 1;
   layout.n_instruments = 2;  // 5 planet + 2 x (offset, jitter) = 9 > 7 points
   CHECK(s.error_of([&] { apsides::check_enough_points(d, layout); }) ==
-        "7 velocities are too few for a model with 1 planet(s), 2 instrument(s) with jitter: it has "
+        "DIR/rv.csv: 7 velocities are too few for a model with 1 planet(s), 2 instrument(s) with jitter: it has "
         "9 free parameters and needs more than 9 points");
   layout.fit_jitter = false;  // 7 parameters: still not more points than parameters
   CHECK(s.error_of([&] { apsides::check_enough_points(d, layout); }) ==
-        "7 velocities are too few for a model with 1 planet(s), 2 instrument(s): it has 7 free "
+        "DIR/rv.csv: 7 velocities are too few for a model with 1 planet(s), 2 instrument(s): it has 7 free "
         "parameters and needs more than 7 points");
   layout.n_planets = 0;
   layout.trend = apsides::Trend::kQuadratic;  // 4 parameters
   CHECK(s.error_of([&] { apsides::check_enough_points(d, layout); }) == "no error");
+  // One point through the command line: the file is named, exit 2.
+  const std::string one = s.write("one.csv", "2459000.5,1,1\n");
+  for (const std::string cmd : {" fit ", " scan "}) {
+    const auto r = apsides::test::run_command(apsides::test::apsides_binary() + cmd + one);
+    CHECK(r.status == 2);
+    CHECK(r.output.find(one + ": 1 ") != std::string::npos);
+  }
 }
 
 TEST_CASE("an instrument with a single point cannot have its own offset and jitter") {

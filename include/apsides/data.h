@@ -27,6 +27,8 @@ struct VelocityData {
   std::vector<int> instrument;           // index into instrument_names
   std::vector<std::string> instrument_names;
   std::vector<std::string> origin;       // "file:line" of each point, for messages
+  // The files the points came from ("a.csv, b.csv"), for messages about the data as a whole.
+  std::string sources() const;
   // Things the user should know that are not errors (e.g. uncertainties that look like
   // m/s in a file declared km/s, numeric columns skipped). Commands print them to stderr.
   std::vector<std::string> warnings;
