@@ -7,6 +7,7 @@
 
 #include "apsides/constants.h"
 #include "apsides/evidence.h"
+#include "apsides/fit.h"
 #include "apsides/model_priors.h"
 #include "apsides/project.h"
 
@@ -41,19 +42,24 @@ void BM_GaussianBox(benchmark::State& state) {
 BENCHMARK(BM_GaussianBox)->Arg(2)->Arg(5)->Arg(10)->Arg(20)->Unit(benchmark::kMillisecond)->Complexity();
 
 void BM_DemoCompareTwoPlanets(benchmark::State& state) {
+  // As `apsides compare --max-planets 2` runs it: velocities and transit times, the
+  // project's priors (periastron limit included), jumps to the search's periods.
   const auto project = apsides::load_project(std::string(APSIDES_SOURCE_DIR) + "/datasets_synthetic/demo/project.toml");
   const auto data = project.load_velocities();
-  apsides::ModelLayout base;
-  base.n_instruments = static_cast<int>(data.n_instruments());
+  const auto transits = project.load_transits();
+  apsides::SearchProblem problem = apsides::search_problem(project, data, transits);
+  problem.search.max_planets = 2;
+  const apsides::ModelLayout base = apsides::problem_layout(problem, 0);
   apsides::CompareOptions opt;
   opt.max_planets = 2;
   opt.nested.live_points = project.evidence.live_points;
   opt.nested.threads = 2;
-  auto priors_for = [&](const apsides::ModelLayout& l) {
-    return apsides::build_priors(data, l, project.search, project.model, project.priors, 2);
-  };
+  apsides::SearchOptions so = apsides::search_options(project);
+  so.max_planets = 2;
+  opt.period_hints_days = apsides::search_periods(apsides::search_planets(problem, so));
+  auto priors_for = [&](const apsides::ModelLayout& l) { return apsides::problem_priors(problem, l); };
   for (auto _ : state) {
-    const auto r = apsides::compare_planet_counts(data, base, priors_for, opt);
+    const auto r = apsides::compare_planet_counts(data, base, priors_for, opt, {}, &transits);
     benchmark::DoNotOptimize(r.selected_n_planets);
     double worst = 0.0;
     for (const auto& row : r.rows) worst = std::max(worst, row.ln_evidence_err);
