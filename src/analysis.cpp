@@ -464,12 +464,12 @@ AnalysisOutcome run_analysis(const Project& project, const AnalysisOptions& opti
     copt.nested.seed = project.evidence.seed;
     copt.nested.threads = options.threads;
     copt.bayes_threshold = project.evidence.bayes_threshold;
-    copt.period_hints_days = search_periods(search);
+    copt.search_hints = search_signals(search);
     const ModelLayout base = problem_layout(problem, 0);
     auto priors_for = [&](const ModelLayout& layout) { return problem_priors(problem, layout); };
     // The comparison is the slow stage: cache it (keyed by the project text and the
     // options) so that --resume does not redo it.
-    const std::string key = fmt::format("v2|{}|{}|{}|{}|{}|{}", std::hash<std::string>{}(project.text), copt.min_planets,
+    const std::string key = fmt::format("v3|{}|{}|{}|{}|{}|{}", std::hash<std::string>{}(project.text), copt.min_planets,
                                         copt.max_planets, copt.nested.live_points, copt.nested.seed, copt.bayes_threshold);
     bool cached = false;
     if (options.resume && fs::exists(compare_cache)) {

@@ -2,6 +2,8 @@
 
 #include <fmt/format.h>
 
+#include <boost/math/distributions/normal.hpp>
+
 #include <Eigen/Cholesky>
 #include <Eigen/Dense>
 #include <algorithm>
@@ -124,7 +126,8 @@ struct Evaluator {
     for (double x : u)
       if (!(x >= 0.0 && x < 1.0)) return -kInf;
     problem.prior_transform(u, theta);
-    const double l = problem.log_likelihood(theta);
+    double l = problem.log_likelihood(theta);
+    if (problem.log_prior_ratio_index >= 0) l -= theta[static_cast<std::size_t>(problem.log_prior_ratio_index)];
     return std::isnan(l) ? -kInf : l;
   }
 };
@@ -135,51 +138,197 @@ struct WalkOutcome {
   bool ok = false;
 };
 
-// Mixture density of the period part of a mode jump (see NestedProblem::Jump).
-double peak_density(const NestedProblem::Jump& j, double u) {
+// Normal(c, w) truncated to [0, 1): density at u.
+double truncated_density(double u, double c, double w) {
+  const double r = 1.0 / (w * std::sqrt(2.0));
+  const double mass = 0.5 * (std::erf((1.0 - c) * r) - std::erf(-c * r));
+  const double z = (u - c) / w;
+  return std::exp(-0.5 * z * z) / (w * std::sqrt(2.0 * constants::kPi) * std::max(mass, 1e-300));
+}
+// Normal(c, w) wrapped onto [0, 1) (w well below 1): density at u.
+double wrapped_density(double u, double c, double w) {
   double g = 0.0;
-  for (std::size_t m = 0; m < j.centres.size(); ++m) {
-    const double c = j.centres[m], w = j.widths[m];
-    const double mass = 0.5 * (std::erf((1.0 - c) / (w * std::sqrt(2.0))) - std::erf(-c / (w * std::sqrt(2.0))));
-    const double z = (u - c) / w;
-    g += std::exp(-0.5 * z * z) / (w * std::sqrt(2.0 * constants::kPi) * std::max(mass, 1e-300));
+  for (int k = -2; k <= 2; ++k) {
+    const double z = (u - c + k) / w;
+    g += std::exp(-0.5 * z * z);
   }
-  return j.centres.empty() ? 1.0 : g / static_cast<double>(j.centres.size());
+  return g / (w * std::sqrt(2.0 * constants::kPi));
+}
+double truncated_draw(double c, double w, std::mt19937_64& rng) {
+  std::normal_distribution<double> gauss(c, w);
+  for (int tries = 0; tries < 1000; ++tries) {
+    const double u = gauss(rng);
+    if (u >= 0.0 && u < 1.0) return u;
+  }
+  return std::clamp(c, 0.0, std::nextafter(1.0, 0.0));  // a centre far outside: never in practice
 }
 
-// Density of the whole jump block at (u_period, u_amplitude).
-double jump_density(const NestedProblem::Jump& j, double kappa, double u_period, double u_small) {
-  const double wp = j.centres.empty() ? 0.0 : j.w_peak;
+// Density of the targets part of a mode jump at y (see NestedProblem::Jump).
+double targets_density(const NestedProblem::Jump& j, const Eigen::VectorXd& y) {
+  double g = 0.0, total = 0.0;
+  for (const auto& t : j.targets) {
+    double d = truncated_density(y[j.coordinate], t.period_u, t.period_w);
+    if (j.small_coordinate >= 0 && std::isfinite(t.amplitude_u))
+      d *= truncated_density(y[j.small_coordinate], t.amplitude_u, t.amplitude_w);
+    if (j.phase_coordinate >= 0 && std::isfinite(t.phase_u)) d *= wrapped_density(y[j.phase_coordinate], t.phase_u, t.phase_w);
+    g += t.weight * d;
+    total += t.weight;
+  }
+  return total > 0.0 ? g / total : 1.0;
+}
+
+// The cube coordinates of a jump's block, in the order period, amplitude, the rest.
+std::vector<int> jump_block(const NestedProblem::Jump& j) {
+  std::vector<int> c{j.coordinate};
+  if (j.small_coordinate >= 0) c.push_back(j.small_coordinate);
+  c.insert(c.end(), j.redraw_uniform.begin(), j.redraw_uniform.end());
+  return c;
+}
+
+// The live points' blocks as a kernel density: every live point's block of every jump
+// (the jumps' blocks are pooled: a planet's block may land where another planet's sits in
+// some live point), a Gaussian kernel around each, in coordinates whitened by the blocks'
+// covariance, of width half the distance to its 5th nearest neighbour (so a tight cluster
+// gets tight kernels). Rebuilt every few iterations from the live points; fixed while the
+// walks run, so the jumps stay exact Metropolis-Hastings moves.
+class LiveKernels {
+ public:
+  int block_size() const { return block_; }
+  bool empty() const { return centres_.empty(); }
+
+  void build(const std::vector<LivePoint>& live, const std::vector<NestedProblem::Jump>& jumps) {
+    centres_.clear();
+    block_ = 0;
+    if (jumps.empty()) return;
+    block_ = static_cast<int>(jump_block(jumps.front()).size());
+    std::vector<std::vector<int>> blocks;
+    for (const auto& j : jumps) {
+      blocks.push_back(jump_block(j));
+      if (static_cast<int>(blocks.back().size()) != block_) {
+        block_ = 0;  // blocks of different shapes: no pooled kernels
+        return;
+      }
+    }
+    const int D = block_;
+    const std::size_t m = live.size() * blocks.size();
+    Eigen::MatrixXd x(static_cast<Eigen::Index>(m), D);
+    std::size_t r = 0;
+    for (const auto& lp : live)
+      for (const auto& bl : blocks) {
+        for (int c = 0; c < D; ++c) x(static_cast<Eigen::Index>(r), c) = lp.u[static_cast<std::size_t>(bl[static_cast<std::size_t>(c)])];
+        ++r;
+      }
+    mean_ = x.colwise().mean().transpose();
+    const Eigen::MatrixXd centred = x.rowwise() - mean_.transpose();
+    Eigen::MatrixXd cov = centred.transpose() * centred / std::max(1.0, static_cast<double>(m) - 1.0);
+    cov.diagonal().array() += 1e-12;
+    Eigen::LLT<Eigen::MatrixXd> llt(cov);
+    if (llt.info() != Eigen::Success) {
+      block_ = 0;
+      return;
+    }
+    chol_ = llt.matrixL();
+    const Eigen::MatrixXd w = llt.matrixL().solve(centred.transpose());  // D x m, whitened
+    double ln_det = 0.0;
+    for (int c = 0; c < D; ++c) ln_det += std::log(chol_(c, c));
+    const std::size_t k = std::min<std::size_t>(5, m - 1);
+    centres_.assign(m, Eigen::VectorXd());
+    ln_norm_.assign(m, 0.0);
+    inv_two_h2_.assign(m, 0.0);
+    h_.assign(m, 0.0);
+    std::vector<double> d2(m);
+    for (std::size_t i = 0; i < m; ++i) {
+      centres_[i] = w.col(static_cast<Eigen::Index>(i));
+      for (std::size_t j = 0; j < m; ++j) d2[j] = (w.col(static_cast<Eigen::Index>(j)) - centres_[i]).squaredNorm();
+      d2[i] = kInf;
+      std::nth_element(d2.begin(), d2.begin() + static_cast<std::ptrdiff_t>(k - 1), d2.end());
+      const double h = std::max(0.5 * std::sqrt(d2[k - 1]), 1e-6);
+      h_[i] = h;
+      inv_two_h2_[i] = 0.5 / (h * h);
+      ln_norm_[i] = -D * std::log(h) - 0.5 * D * std::log(2.0 * constants::kPi) - ln_det -
+                    std::log(static_cast<double>(m));
+    }
+  }
+
+  // Density at the block's cube coordinates.
+  double density(const Eigen::VectorXd& y) const {
+    const Eigen::VectorXd w = chol_.triangularView<Eigen::Lower>().solve(y - mean_);
+    double q = 0.0;
+    for (std::size_t i = 0; i < centres_.size(); ++i) {
+      const double e = ln_norm_[i] - (w - centres_[i]).squaredNorm() * inv_two_h2_[i];
+      if (e > -60.0) q += std::exp(e);
+    }
+    return q;
+  }
+
+  Eigen::VectorXd draw(std::mt19937_64& rng) const {
+    std::uniform_int_distribution<std::size_t> pick(0, centres_.size() - 1);
+    std::normal_distribution<double> gauss(0.0, 1.0);
+    const std::size_t i = pick(rng);
+    Eigen::VectorXd z(block_);
+    for (int c = 0; c < block_; ++c) z[c] = centres_[i][c] + h_[i] * gauss(rng);
+    return mean_ + chol_ * z;
+  }
+
+ private:
+  int block_ = 0;
+  Eigen::VectorXd mean_;
+  Eigen::MatrixXd chol_;
+  std::vector<Eigen::VectorXd> centres_;
+  std::vector<double> ln_norm_, inv_two_h2_, h_;
+};
+
+// Density of a jump's proposal at the point y (only its block matters).
+double jump_density(const NestedProblem::Jump& j, double kappa, const LiveKernels& kde, const Eigen::VectorXd& y) {
+  const double wp = j.targets.empty() ? 0.0 : j.w_peak;
   const double ws = j.small_coordinate >= 0 ? j.w_small : 0.0;
-  const double norm = j.w_uniform + wp + ws;
+  const double wl = kde.empty() ? 0.0 : j.w_live;
+  const double norm = j.w_uniform + wp + ws + wl;
   double q = j.w_uniform;
-  if (wp > 0.0) q += wp * peak_density(j, u_period);
-  if (ws > 0.0 && u_small < kappa) q += ws / kappa;
+  if (wp > 0.0) q += wp * targets_density(j, y);
+  if (ws > 0.0 && y[j.small_coordinate] < kappa) q += ws / kappa;
+  if (wl > 0.0) {
+    const std::vector<int> bl = jump_block(j);
+    Eigen::VectorXd b(static_cast<Eigen::Index>(bl.size()));
+    for (std::size_t c = 0; c < bl.size(); ++c) b[static_cast<Eigen::Index>(c)] = y[bl[c]];
+    q += wl * kde.density(b);
+  }
   return q / norm;
 }
 
 // Draws a jump block into y (period, amplitude, uniform coordinates).
-void jump_draw(const NestedProblem::Jump& j, double kappa, Eigen::VectorXd& y, std::mt19937_64& rng) {
+void jump_draw(const NestedProblem::Jump& j, double kappa, const LiveKernels& kde, Eigen::VectorXd& y,
+               std::mt19937_64& rng) {
   std::uniform_real_distribution<double> unif(0.0, 1.0);
-  const double wp = j.centres.empty() ? 0.0 : j.w_peak;
+  const double wp = j.targets.empty() ? 0.0 : j.w_peak;
   const double ws = j.small_coordinate >= 0 ? j.w_small : 0.0;
-  const double r = unif(rng) * (j.w_uniform + wp + ws);
+  const double wl = kde.empty() ? 0.0 : j.w_live;
+  const double r = unif(rng) * (j.w_uniform + wp + ws + wl);
+  if (r >= j.w_uniform + wp + ws) {
+    const Eigen::VectorXd b = kde.draw(rng);
+    const std::vector<int> bl = jump_block(j);
+    for (std::size_t c = 0; c < bl.size(); ++c) y[bl[c]] = b[static_cast<Eigen::Index>(c)];
+    return;  // may fall outside the cube: rejected there (q is the untruncated mixture)
+  }
   y[j.coordinate] = unif(rng);
   if (j.small_coordinate >= 0) y[j.small_coordinate] = unif(rng);
   for (int c : j.redraw_uniform) y[c] = unif(rng);
   if (r < j.w_uniform) return;
   if (r < j.w_uniform + wp) {
-    std::uniform_int_distribution<std::size_t> pick(0, j.centres.size() - 1);
-    const std::size_t m = pick(rng);
-    std::normal_distribution<double> gauss(j.centres[m], j.widths[m]);
-    for (int tries = 0; tries < 1000; ++tries) {
-      const double u = gauss(rng);
-      if (u >= 0.0 && u < 1.0) {
-        y[j.coordinate] = u;
-        return;
-      }
+    double total = 0.0;
+    for (const auto& t : j.targets) total += t.weight;
+    double pick = unif(rng) * total;
+    std::size_t m = 0;
+    while (m + 1 < j.targets.size() && pick >= j.targets[m].weight) pick -= j.targets[m++].weight;
+    const auto& t = j.targets[m];
+    y[j.coordinate] = truncated_draw(t.period_u, t.period_w, rng);
+    if (j.small_coordinate >= 0 && std::isfinite(t.amplitude_u))
+      y[j.small_coordinate] = truncated_draw(t.amplitude_u, t.amplitude_w, rng);
+    if (j.phase_coordinate >= 0 && std::isfinite(t.phase_u)) {
+      const double v = std::normal_distribution<double>(t.phase_u, t.phase_w)(rng);
+      y[j.phase_coordinate] = v - std::floor(v);
     }
-    return;  // a centre far outside the cube: the uniform draw stands (q covers it)
+    return;
   }
   y[j.small_coordinate] = kappa * unif(rng);
 }
@@ -189,7 +338,7 @@ void jump_draw(const NestedProblem::Jump& j, double kappa, Eigen::VectorXd& y, s
 WalkOutcome slice_walk(const Evaluator& eval, const LivePoint& start, double ln_like_min,
                        const Eigen::MatrixXd& chol, int steps, std::mt19937_64& rng,
                        const std::vector<NestedProblem::Jump>& jumps, const std::vector<double>& kappas,
-                       double jumps_per_step) {
+                       const LiveKernels& kde, double jumps_per_step) {
   const int d = static_cast<int>(start.u.size());
   std::uniform_real_distribution<double> unif(0.0, 1.0);
   std::normal_distribution<double> gauss(0.0, 1.0);
@@ -248,10 +397,11 @@ WalkOutcome slice_walk(const Evaluator& eval, const LivePoint& start, double ln_
       const NestedProblem::Jump& jp = jumps[which];
       const double kappa = kappas[which];
       y = x;
-      jump_draw(jp, kappa, y, rng);
-      const int sc = jp.small_coordinate;
-      const double accept = jump_density(jp, kappa, x[jp.coordinate], sc >= 0 ? x[sc] : 1.0) /
-                            jump_density(jp, kappa, y[jp.coordinate], sc >= 0 ? y[sc] : 1.0);
+      jump_draw(jp, kappa, kde, y, rng);
+      bool in_cube = true;
+      for (int c = 0; c < d; ++c) in_cube = in_cube && y[c] >= 0.0 && y[c] < 1.0;
+      if (!in_cube) continue;
+      const double accept = jump_density(jp, kappa, kde, x) / jump_density(jp, kappa, kde, y);
       if (unif(rng) < accept && inside(y, l)) {
         x = y;
         out.point.ln_like = l;
@@ -336,6 +486,8 @@ NestedResult run_nested_sampling(const NestedProblem& problem, const NestedOptio
   std::vector<int> removed(static_cast<std::size_t>(batch));
   std::vector<WalkOutcome> outcomes(static_cast<std::size_t>(batch));
   res.termination = NestedTermination::kConverged;
+  LiveKernels kernels;
+  constexpr long kKernelRefresh = 20;
   for (long it = 0;; ++it) {
     double ln_like_max = -kInf;
     for (const auto& l : live) ln_like_max = std::max(ln_like_max, l.ln_like);
@@ -406,6 +558,8 @@ NestedResult run_nested_sampling(const NestedProblem& problem, const NestedOptio
         std::fill(kappas.begin(), kappas.end(), std::clamp(*q, 1e-6, 1.0));
       }
     }
+    // The live points' kernel density for the jumps, refreshed every few iterations.
+    if (!problem.jumps.empty() && it % kKernelRefresh == 0) kernels.build(live, problem.jumps);
     const std::uint64_t first_stream = replacement_stream;
     replacement_stream += static_cast<std::uint64_t>(batch);
     workers.run(batch, [&](int j) {
@@ -413,7 +567,7 @@ NestedResult run_nested_sampling(const NestedProblem& problem, const NestedOptio
       std::uniform_int_distribution<std::size_t> pick(0, starts.size() - 1);
       const LivePoint& start = live[static_cast<std::size_t>(starts[pick(rng)])];
       outcomes[static_cast<std::size_t>(j)] =
-          slice_walk(eval, start, ln_like_star, chol, steps, rng, problem.jumps, kappas, options.jumps_per_step);
+          slice_walk(eval, start, ln_like_star, chol, steps, rng, problem.jumps, kappas, kernels, options.jumps_per_step);
     });
     bool failed = false;
     for (int j = 0; j < batch; ++j) {
@@ -448,6 +602,42 @@ NestedResult run_nested_sampling(const NestedProblem& problem, const NestedOptio
     }
   }
   h -= ln_z;
+  if (problem.log_prior_ratio_index >= 0) {
+    // Report the likelihood itself, and theta without the sampler's own entries.
+    const std::size_t idx = static_cast<std::size_t>(problem.log_prior_ratio_index);
+    res.ln_like_max = -kInf;
+    for (auto& smp : res.samples) {
+      smp.ln_like += smp.theta[idx];
+      smp.theta.resize(idx);
+      if (smp.ln_like > res.ln_like_max) {
+        res.ln_like_max = smp.ln_like;
+        res.theta_max_like = smp.theta;
+      }
+    }
+  }
+  if (problem.complete_point) {
+    // Parameters integrated out: posterior draws into every point (one stream per point),
+    // and the profile likelihood for the best point.
+    std::vector<double> profile(res.samples.size(), -kInf);
+    const int n_samples = static_cast<int>(res.samples.size());
+    const int chunk = 256;
+    workers.run((n_samples + chunk - 1) / chunk, [&](int c) {
+      for (int i = c * chunk; i < std::min(n_samples, (c + 1) * chunk); ++i) {
+        NestedSample& smp = res.samples[static_cast<std::size_t>(i)];
+        std::vector<double> best = smp.theta;
+        profile[static_cast<std::size_t>(i)] = problem.complete_point(best, nullptr);
+        auto rng = make_stream(options.seed ^ 0xc0ffeeULL, static_cast<std::uint64_t>(i));
+        smp.ln_like = problem.complete_point(smp.theta, &rng);
+      }
+    });
+    res.ln_like_max = -kInf;
+    for (std::size_t i = 0; i < profile.size(); ++i)
+      if (profile[i] > res.ln_like_max) {
+        res.ln_like_max = profile[i];
+        res.theta_max_like = res.samples[i].theta;
+        problem.complete_point(res.theta_max_like, nullptr);
+      }
+  }
   res.ln_evidence = ln_z;
   res.information_nats = std::max(0.0, h);
   res.ln_evidence_err = std::sqrt(res.information_nats / n);
@@ -537,7 +727,33 @@ bool same_ecc_prior(const EccentricityPrior& a, const EccentricityPrior& b) {
 }
 
 // Where each cube coordinate goes.
-enum class SlotKind { kPlain, kEccentricity, kOmega, kPhase, kTransitPeriod, kTransitPhase };
+enum class SlotKind { kPlain, kEccentricity, kOmega, kPhase, kTransitPeriod, kTransitPhase, kSelector };
+
+// Posterior repartitioning of one planet's period (see make_rv_evidence_problem): with
+// probability alpha the period's cube coordinate is drawn uniformly inside one of the
+// hinted windows [lo_m, hi_m) (chosen by weight), else from the prior.
+struct PeriodRepartition {
+  int planet = 0;
+  std::size_t period_slot = 0, selector_slot = 0, theta_index = 0;
+  std::vector<double> lo, hi, cum_weight;  // cum_weight: cumulative, last = 1
+  std::vector<double> weight;
+  // Cube coordinate y of the period from (u, selector).
+  double map(double u, double s, double alpha) const {
+    if (s >= alpha) return u;
+    const double r = s / alpha;
+    std::size_t m = 0;
+    while (m + 1 < cum_weight.size() && r >= cum_weight[m]) ++m;
+    return lo[m] + u * (hi[m] - lo[m]);
+  }
+  // ln(pi~ / pi) at y.
+  double ln_ratio(double y, double alpha) const {
+    double q = 1.0 - alpha;
+    for (std::size_t m = 0; m < lo.size(); ++m)
+      if (y >= lo[m] && y < hi[m]) q += alpha * weight[m] / (hi[m] - lo[m]);
+    return std::log(q);
+  }
+};
+constexpr double kRepartitionAlpha = 0.5;
 struct Slot {
   SlotKind kind;
   std::size_t index;  // theta index (for kEccentricity/kOmega: the planet's h index)
@@ -547,6 +763,26 @@ struct Slot {
 }  // namespace
 
 namespace {
+// A draw from normal(mean, sd) truncated to [lo, hi], by the inverse CDF, worked from the
+// tail the interval sits in so that far-out intervals keep their digits.
+double truncated_normal_draw(double mean, double sd, double lo, double hi, std::mt19937_64& rng) {
+  const double u = std::uniform_real_distribution<double>(0.0, 1.0)(rng);
+  const boost::math::normal unit;
+  const double za = (lo - mean) / sd, zb = (hi - mean) / sd;
+  double z;
+  if (za >= 0.0) {  // upper tail: Q(z) = 1 - Phi(z)
+    const double qa = boost::math::cdf(boost::math::complement(unit, za));
+    const double qb = boost::math::cdf(boost::math::complement(unit, zb));
+    const double q = qa - u * (qa - qb);
+    z = q > 0.0 && q < 1.0 ? boost::math::quantile(boost::math::complement(unit, q)) : za;
+  } else {
+    const double pa = boost::math::cdf(unit, za), pb = boost::math::cdf(unit, std::min(zb, 38.0));
+    const double pr = pa + u * (pb - pa);
+    z = pr > 0.0 && pr < 1.0 ? boost::math::quantile(unit, pr) : zb;
+  }
+  return std::clamp(mean + sd * std::clamp(z, za, zb), lo, hi);
+}
+
 // The prior's CDF at x, by bisection on its quantile (priors here are continuous and
 // strictly increasing on their support).
 double prior_cdf(const Prior& p, double x) {
@@ -561,7 +797,7 @@ double prior_cdf(const Prior& p, double x) {
 
 RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const ModelPriors& priors,
                                            bool phase_conjunction, const EvidenceTransits* transits,
-                                           std::span<const double> period_hints_days) {
+                                           std::span<const WeightedHint> hints) {
   const ModelLayout layout = model.layout();
   const std::size_t n_params = layout.n_params();
   if (priors.parameter.size() != n_params || priors.eccentricity.size() != static_cast<std::size_t>(layout.n_planets))
@@ -572,6 +808,12 @@ RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const Mo
 
   RvEvidenceProblem out;
   std::vector<Slot> slots;
+  std::vector<KeplerianModel::IntegratedOffset> integrated;
+  auto offset_instrument = [&layout](std::size_t index) {
+    for (int i = 0; i < layout.n_instruments; ++i)
+      if (layout.offset_index(i) == index) return i;
+    return -1;
+  };
   std::vector<double> fixed(n_params, 0.0);
   std::vector<bool> phase(static_cast<std::size_t>(k), false);
   for (std::size_t i = 0; i < n_params; ++i) {
@@ -589,6 +831,13 @@ RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const Mo
     if (pr.kind == PriorKind::kFixed) {
       fixed[i] = pr.a;
       out.prior_notes.push_back(fmt::format("{}  fixed at {:g}", names[i], pr.a));
+      continue;
+    }
+    if (const int inst = offset_instrument(i); inst >= 0 && pr.kind == PriorKind::kUniform && pr.b > pr.a) {
+      integrated.push_back({inst, pr.a, pr.b});
+      out.prior_notes.push_back(
+          fmt::format("{}  {} (integrated out analytically; samples drawn from its conditional posterior)", names[i],
+                      pr.describe()));
       continue;
     }
     if (in_planet && slot == 4 && phase_conjunction && pr.kind == PriorKind::kUniform) {
@@ -727,20 +976,34 @@ RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const Mo
   out.n_transit_points = 0;
   for (const auto& t : terms) out.n_transit_points += t.like->size();
 
-  // Mode jumps on each ordered planet's period (phase and K redrawn), to the hinted
-  // periods; the peak width in period is about P^2 / baseline.
+  // Something must be left to sample: keep the first offset a coordinate then.
+  if (slots.empty() && !integrated.empty()) {
+    const std::size_t i = layout.offset_index(integrated.front().instrument);
+    slots.push_back({SlotKind::kPlain, i, -1});
+    for (auto& note : out.prior_notes)
+      if (note.rfind(names[i] + "  ", 0) == 0) note = fmt::format("{}  {}", names[i], priors.parameter[i].describe());
+    integrated.erase(integrated.begin());
+  }
+  out.n_integrated_params = static_cast<int>(integrated.size());
+
+  std::vector<PeriodRepartition> repartitions;
+  // Mode jumps on each ordered planet's block, aimed at the hinted signals: the peak width
+  // in period is about P^2 / baseline; K within half its value; the phase within 0.08
+  // cycles (the signal's phase is as well known as its period at mid-baseline).
   {
     const double baseline = std::max(model.data().baseline_days(), 1.0);
     for (int j : free_planets) {
       const std::size_t b = static_cast<std::size_t>(5 * j);
-      int c_period = -1, c_amplitude = -1;
+      int c_period = -1, c_amplitude = -1, c_phase = -1;
       std::vector<int> others;
       for (std::size_t c = 0; c < slots.size(); ++c) {
         const Slot& sc = slots[c];
         if (sc.planet != j) continue;
         if (sc.kind == SlotKind::kPlain && sc.index == b) c_period = static_cast<int>(c);
         if (sc.kind == SlotKind::kPlain && sc.index == b + 1) c_amplitude = static_cast<int>(c);
-        if ((sc.kind == SlotKind::kPlain && sc.index == b + 4) || sc.kind == SlotKind::kPhase)
+        if (sc.kind == SlotKind::kPhase) c_phase = static_cast<int>(c);
+        if ((sc.kind == SlotKind::kPlain && sc.index == b + 4) || sc.kind == SlotKind::kPhase ||
+            sc.kind == SlotKind::kEccentricity || sc.kind == SlotKind::kOmega)
           others.push_back(static_cast<int>(c));
       }
       if (c_period < 0) continue;
@@ -748,13 +1011,54 @@ RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const Mo
       NestedProblem::Jump jump;
       jump.coordinate = c_period;
       jump.small_coordinate = c_amplitude;
-      jump.redraw_uniform = others;
-      for (double hint : period_hints_days) {
-        if (!(hint > pp.lower() && hint < pp.upper()) || !std::isfinite(pp.log_density(hint))) continue;
+      jump.phase_coordinate = c_phase;
+      PeriodRepartition rep;
+      const Prior& kp = priors.parameter[b + 1];
+      const Prior& tp = priors.parameter[b + 4];
+      for (const WeightedHint& wh : hints) {
+        const double hint = wh.signal.period_days;
+        if (!(hint > pp.lower() && hint < pp.upper()) || !std::isfinite(pp.log_density(hint)) || !(wh.weight > 0.0))
+          continue;
         const double sigma_p = 0.5 * hint * hint / baseline;
-        jump.centres.push_back(prior_cdf(pp, hint));
-        jump.widths.push_back(std::max(std::exp(pp.log_density(hint)) * sigma_p, 1e-9));
+        NestedProblem::Jump::Target t;
+        t.weight = wh.weight;
+        t.period_u = prior_cdf(pp, hint);
+        t.period_w = std::max(std::exp(pp.log_density(hint)) * sigma_p, 1e-9);
+        const double kk = wh.signal.semi_amplitude_m_s;
+        if (c_amplitude >= 0 && std::isfinite(kk) && kk > kp.lower() && kk < kp.upper() &&
+            std::isfinite(kp.log_density(kk))) {
+          t.amplitude_u = prior_cdf(kp, kk);
+          t.amplitude_w = std::clamp(std::exp(kp.log_density(kk)) * 0.5 * kk, 0.005, 0.3);
+        }
+        if (c_phase >= 0 && std::isfinite(wh.signal.t_conj_days)) {
+          const double v = (wh.signal.t_conj_days - 0.5 * (tp.a + tp.b)) / hint + 0.5;
+          t.phase_u = v - std::floor(v);
+          t.phase_w = 0.08;
+        }
+        jump.targets.push_back(t);
+        rep.lo.push_back(std::max(0.0, t.period_u - t.period_w));
+        rep.hi.push_back(std::min(1.0, t.period_u + t.period_w));
+        rep.weight.push_back(wh.weight);
       }
+      if (!rep.lo.empty()) {
+        double total = 0.0;
+        for (double w : rep.weight) total += w;
+        double cum = 0.0;
+        for (double& w : rep.weight) {
+          w /= total;
+          cum += w;
+          rep.cum_weight.push_back(cum);
+        }
+        rep.cum_weight.back() = 1.0;
+        rep.planet = j;
+        rep.period_slot = static_cast<std::size_t>(c_period);
+        rep.theta_index = b;
+        rep.selector_slot = slots.size();
+        others.push_back(static_cast<int>(slots.size()));
+        slots.push_back({SlotKind::kSelector, 0, j});
+        repartitions.push_back(std::move(rep));
+      }
+      jump.redraw_uniform = others;
       out.problem.jumps.push_back(std::move(jump));
     }
   }
@@ -763,10 +1067,12 @@ RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const Mo
   const std::vector<Slot> sl = slots;
   const auto layout_copy = layout;
   out.problem.dimension = static_cast<int>(slots.size());
-  out.problem.n_params = static_cast<int>(n_total);
+  out.problem.n_params = static_cast<int>(n_total) + (repartitions.empty() ? 0 : 1);
+  if (!repartitions.empty()) out.problem.log_prior_ratio_index = static_cast<int>(n_total);
   out.problem.names = all_names;
   out.problem.prior_transform = [pri, sl, fixed, layout_copy, sort_blocks, k, free_planets, extra_period_priors,
-                                 extra_t_priors, n_params](std::span<const double> u, std::span<double> theta) {
+                                 extra_t_priors, n_params, repartitions,
+                                 n_total](std::span<const double> u, std::span<double> theta) {
     for (std::size_t i = 0; i < n_params; ++i) theta[i] = fixed[i];
     std::size_t extra = 0;
     // Eccentricity and omega first land in (h, k) slots as (e, w), converted below.
@@ -781,6 +1087,7 @@ RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const Mo
         case SlotKind::kOmega: theta[slot.index + 1] = 2.0 * constants::kPi * u[s] - constants::kPi; break;
         case SlotKind::kPhase: phase_u[static_cast<std::size_t>(slot.planet)] = u[s]; break;
         case SlotKind::kTransitPeriod: theta[slot.index] = extra_period_priors[extra].quantile(u[s]); break;
+        case SlotKind::kSelector: break;  // read with the period below
         case SlotKind::kTransitPhase: {
           const Prior& tp = extra_t_priors[extra];
           theta[slot.index] = 0.5 * (tp.a + tp.b) + (u[s] - 0.5) * theta[slot.index - 1];
@@ -788,6 +1095,15 @@ RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const Mo
           break;
         }
       }
+    }
+    if (!repartitions.empty()) {
+      double ln_ratio = 0.0;
+      for (const auto& rp : repartitions) {
+        const double y = rp.map(u[rp.period_slot], u[rp.selector_slot], kRepartitionAlpha);
+        theta[rp.theta_index] = pri.parameter[rp.theta_index].quantile(y);
+        ln_ratio += rp.ln_ratio(y, kRepartitionAlpha);
+      }
+      theta[n_total] = ln_ratio;
     }
     for (int j = 0; j < k; ++j) {
       const std::size_t b = static_cast<std::size_t>(5 * j);
@@ -823,21 +1139,74 @@ RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const Mo
     (void)layout_copy;
   };
   const KeplerianModel* m = &model;
-  out.problem.log_likelihood = [m, constrain, k, pri, periastron, terms, n_params](std::span<const double> theta) {
-    if (constrain && pri.first_unordered_planet(theta, k) >= 0) return -kInf;
-    if (periastron)
-      for (int j = 0; j < k; ++j) {
-        const std::size_t b = static_cast<std::size_t>(5 * j);
-        if (!pri.periastron_allowed(theta[b], theta[b + 2], theta[b + 3])) return -kInf;
-      }
-    double l = m->log_likelihood(theta.first(n_params));
-    if (!std::isfinite(l)) return l;
-    for (const auto& t : terms)
-      l += t.like->log_likelihood(theta[t.period_index], theta[t.t_conj_index],
-                                  t.jitter_index >= 0 ? theta[static_cast<std::size_t>(t.jitter_index)] : 0.0);
-    return l;
+  auto likelihood_with = [m, constrain, k, pri, periastron, terms,
+                          n_params](std::vector<KeplerianModel::IntegratedOffset> integrated) {
+    return [m, constrain, k, pri, periastron, terms, n_params, integrated](std::span<const double> theta) {
+      if (constrain && pri.first_unordered_planet(theta, k) >= 0) return -kInf;
+      if (periastron)
+        for (int j = 0; j < k; ++j) {
+          const std::size_t b = static_cast<std::size_t>(5 * j);
+          if (!pri.periastron_allowed(theta[b], theta[b + 2], theta[b + 3])) return -kInf;
+        }
+      double l = integrated.empty() ? m->log_likelihood(theta.first(n_params))
+                                    : m->log_likelihood_offsets_integrated(theta.first(n_params), integrated);
+      if (!std::isfinite(l)) return l;
+      for (const auto& t : terms)
+        l += t.like->log_likelihood(theta[t.period_index], theta[t.t_conj_index],
+                                    t.jitter_index >= 0 ? theta[static_cast<std::size_t>(t.jitter_index)] : 0.0);
+      return l;
+    };
   };
+  out.problem.log_likelihood = likelihood_with(integrated);
+  if (!integrated.empty()) {
+    const std::function<double(std::span<const double>)> like_full = likelihood_with({});
+    const ModelLayout lay = layout;
+    out.problem.complete_point = [m, like_full, integrated, lay, n_params](std::span<double> theta,
+                                                                      std::mt19937_64* rng) {
+      std::vector<KeplerianModel::OffsetConditional> cond;
+      if (!std::isfinite(m->log_likelihood_offsets_integrated(theta.first(n_params), integrated, &cond)))
+        return -kInf;
+      for (std::size_t q = 0; q < integrated.size(); ++q) {
+        const auto& c = cond[q];
+        double g = std::clamp(c.mean_m_s, c.lower_m_s, c.upper_m_s);
+        if (rng != nullptr) g = truncated_normal_draw(c.mean_m_s, c.sd_m_s, c.lower_m_s, c.upper_m_s, *rng);
+        theta[lay.offset_index(integrated[q].instrument)] = g;
+      }
+      return like_full(theta);  // the same terms with the offsets in place, none integrated
+    };
+  }
   return out;
+}
+
+SignalHint sinusoid_hint(const VelocityData& data, double period_days) {
+  SignalHint h;
+  h.period_days = period_days;
+  const int ni = static_cast<int>(data.n_instruments());
+  const int m = 2 + ni;
+  if (!(period_days > 0.0) || data.size() < static_cast<std::size_t>(m) + 1) return h;
+  // v_i = a cos(theta_i) + b sin(theta_i) + offset_inst, theta = 2 pi t / P; weights 1/s^2.
+  Eigen::MatrixXd normal = Eigen::MatrixXd::Zero(m, m);
+  Eigen::VectorXd rhs = Eigen::VectorXd::Zero(m);
+  Eigen::VectorXd row(m);
+  for (std::size_t i = 0; i < data.size(); ++i) {
+    const double th = 2.0 * constants::kPi * data.time_days[i] / period_days;
+    row.setZero();
+    row[0] = std::cos(th);
+    row[1] = std::sin(th);
+    row[2 + data.instrument[i]] = 1.0;
+    const double w = 1.0 / (data.uncertainty_m_s[i] * data.uncertainty_m_s[i]);
+    normal.noalias() += w * row * row.transpose();
+    rhs += w * data.velocity_m_s[i] * row;
+  }
+  const Eigen::LDLT<Eigen::MatrixXd> ldlt(normal);
+  if (ldlt.info() != Eigen::Success) return h;
+  const Eigen::VectorXd x = ldlt.solve(rhs);
+  if (!x.allFinite()) return h;
+  // A circular orbit: v = -K sin(2 pi (t - t_conj) / P) (zero and falling at conjunction),
+  // = K sin(th_c) cos(th) - K cos(th_c) sin(th): a = K sin th_c, b = -K cos th_c.
+  h.semi_amplitude_m_s = std::hypot(x[0], x[1]);
+  h.t_conj_days = std::atan2(x[0], -x[1]) / (2.0 * constants::kPi) * period_days;
+  return h;
 }
 
 std::string kass_raftery_wording(double ln_bayes) {
@@ -891,14 +1260,20 @@ CompareResult compare_planet_counts(const VelocityData& data, const ModelLayout&
   }
   std::size_t n_points_total = data.size();
   // Mode-jump targets: the caller's periods and the periodogram's strongest peaks.
-  std::vector<double> hints = options.period_hints_days;
+  // The caller's (a search's) signals share half the weight, the periodogram's peaks the
+  // other half (all of it when there is only one group).
+  std::vector<WeightedHint> hints;
+  for (const SignalHint& h : options.search_hints) hints.push_back({h, 1.0});
   if (options.max_planets > 0 && data.size() >= data.n_instruments() + 3) {
     PeriodogramOptions po;
     po.n_peaks = 20;
     po.n_window_peaks = 0;
     po.threads = options.nested.threads;
     const PeriodogramResult pg = compute_periodogram(data, po);
-    for (const Peak& pk : pg.peaks) hints.push_back(pk.period_days);
+    const double w = options.search_hints.empty() || pg.peaks.empty()
+                         ? 1.0
+                         : static_cast<double>(options.search_hints.size()) / static_cast<double>(pg.peaks.size());
+    for (const Peak& pk : pg.peaks) hints.push_back({sinusoid_hint(data, pk.period_days), w});
   }
   for (int k = options.min_planets; k <= options.max_planets; ++k) {
     ModelLayout layout = base_layout;
@@ -909,15 +1284,20 @@ CompareResult compare_planet_counts(const VelocityData& data, const ModelLayout&
     RvEvidenceProblem prob =
         make_rv_evidence_problem(model, priors, options.phase_conjunction, et ? &*et : nullptr, hints);
     n_points_total = data.size() + prob.n_transit_points;
-    if (static_cast<std::size_t>(prob.problem.dimension) + 1 >= data.size())
+    const int n_free = prob.problem.dimension + prob.n_integrated_params;
+    if (static_cast<std::size_t>(n_free) + 1 >= data.size())
       throw InputError(fmt::format("compare: {} planet(s) need {} free parameters but the data have only {} points",
-                                   k, prob.problem.dimension, data.size()));
-    if (on_status) on_status(k, fmt::format("{} planet(s): {} free parameters", k, prob.problem.dimension));
+                                   k, n_free, data.size()));
+    if (on_status)
+      on_status(k, prob.n_integrated_params > 0
+                       ? fmt::format("{} planet(s): {} free parameters ({} offsets integrated analytically)", k,
+                                     n_free, prob.n_integrated_params)
+                       : fmt::format("{} planet(s): {} free parameters", k, n_free));
     NestedOptions nopt = options.nested;
     if (nopt.live_points < prob.problem.dimension + 1) nopt.live_points = prob.problem.dimension + 1;
     ComparisonRow row;
     row.n_planets = k;
-    row.n_params = prob.problem.dimension;
+    row.n_params = n_free;
     row.nested = run_nested_sampling(prob.problem, nopt);
     row.ordering_note = prob.ordering_note;
     row.ln_evidence = row.nested.ln_evidence + prob.ln_evidence_offset;

@@ -907,11 +907,14 @@ ModelPriors problem_priors(const SearchProblem& sp, const ModelLayout& layout) {
   return priors;
 }
 
-std::vector<double> search_periods(const SearchResult& result) {
-  std::vector<double> out;
+std::vector<SignalHint> search_signals(const SearchResult& result) {
+  std::vector<SignalHint> out;
   for (const FitResult& f : result.fits)
-    for (int j = 0; j < f.layout.n_planets; ++j) out.push_back(f.theta[f.layout.planet_index(j)]);
-  if (std::isfinite(result.final_peak_period_days)) out.push_back(result.final_peak_period_days);
+    for (int j = 0; j < f.layout.n_planets; ++j) {
+      const Planet p = planet_from(f.theta, f.layout, j);
+      out.push_back({p.period_days, p.semi_amplitude_m_s, p.t_conj_days});
+    }
+  if (std::isfinite(result.final_peak_period_days)) out.push_back({result.final_peak_period_days});
   return out;
 }
 

@@ -189,6 +189,7 @@ KeplerianModel::KeplerianModel(VelocityData data, ModelLayout layout)
 
 namespace {
 constexpr double kNegInf = -std::numeric_limits<double>::infinity();
+constexpr double kLn2Pi = 1.83787706640934548356;  // ln(2 pi)
 
 bool physical(std::span<const double> theta, const ModelLayout& L) {
   for (int j = 0; j < L.n_planets; ++j) {
@@ -265,8 +266,27 @@ double KeplerianModel::chi_square(std::span<const double> theta) const {
   return chi2;
 }
 
+namespace {
+// ln [Phi(zb) - Phi(za)] for za <= zb, from the tail that keeps the digits.
+double ln_normal_mass(double za, double zb) {
+  const double r = 1.0 / std::sqrt(2.0);
+  double m;
+  if (za >= 0.0) m = 0.5 * (std::erfc(za * r) - std::erfc(zb * r));
+  else if (zb <= 0.0) m = 0.5 * (std::erfc(-zb * r) - std::erfc(-za * r));
+  else m = 1.0 - 0.5 * std::erfc(-za * r) - 0.5 * std::erfc(zb * r);
+  return m > 0.0 ? std::log(m) : kNegInf;
+}
+}  // namespace
+
 double KeplerianModel::log_likelihood(std::span<const double> theta) const {
+  return log_likelihood_offsets_integrated(theta, {}, nullptr);
+}
+
+double KeplerianModel::log_likelihood_offsets_integrated(std::span<const double> theta,
+                                                         std::span<const IntegratedOffset> integrated,
+                                                         std::vector<OffsetConditional>* conditionals) const {
   assert(theta.size() == layout_.n_params());
+  if (conditionals != nullptr) conditionals->clear();
   if (!physical(theta, layout_)) return kNegInf;
   // Planet terms on the stack for the usual handful of planets, on the heap beyond.
   kernels::KeplerTerm stack_terms[kMaxStackPlanets];
@@ -286,14 +306,33 @@ double KeplerianModel::log_likelihood(std::span<const double> theta) const {
   for (int i = 0; i < layout_.n_instruments; ++i) {
     const std::size_t b = block_start_[static_cast<std::size_t>(i)];
     const std::size_t n = block_start_[static_cast<std::size_t>(i) + 1] - b;
-    if (n == 0) continue;
-    const double offset = theta[layout_.offset_index(i)];
     const double jitter = layout_.fit_jitter ? theta[layout_.jitter_index(i)] : 0.0;
-    lnl += kernels::block_lnlike(block_time_days_.data() + b, block_velocity_m_s_.data() + b,
-                                 block_variance_m2_s2_.data() + b, n, terms, layout_.n_planets,
-                                 offset, jitter * jitter, c1, c2, scratch.data());
+    const IntegratedOffset* io = nullptr;
+    for (const auto& x : integrated)
+      if (x.instrument == i) io = &x;
+    if (io == nullptr) {
+      if (n == 0) continue;
+      lnl += kernels::block_lnlike(block_time_days_.data() + b, block_velocity_m_s_.data() + b,
+                                   block_variance_m2_s2_.data() + b, n, terms, layout_.n_planets,
+                                   theta[layout_.offset_index(i)], jitter * jitter, c1, c2, scratch.data());
+      continue;
+    }
+    const double width = io->upper_m_s - io->lower_m_s;
+    if (n == 0) {  // no data: the offset keeps its prior
+      if (conditionals != nullptr)
+        conditionals->push_back({0.5 * (io->lower_m_s + io->upper_m_s), width, io->lower_m_s, io->upper_m_s});
+      continue;
+    }
+    const kernels::OffsetFreeFit f =
+        kernels::block_offset_fit(block_time_days_.data() + b, block_velocity_m_s_.data() + b,
+                                  block_variance_m2_s2_.data() + b, n, terms, layout_.n_planets, jitter * jitter,
+                                  c1, c2, scratch.data());
+    const double sd = 1.0 / std::sqrt(f.sum_inverse_variance);
+    lnl += -0.5 * (f.chi2_min + f.log_det + static_cast<double>(n - 1) * kLn2Pi) + std::log(sd) +
+           ln_normal_mass((io->lower_m_s - f.offset) / sd, (io->upper_m_s - f.offset) / sd) - std::log(width);
+    if (conditionals != nullptr) conditionals->push_back({f.offset, sd, io->lower_m_s, io->upper_m_s});
   }
-  return lnl;
+  return std::isnan(lnl) ? kNegInf : lnl;
 }
 
 double KeplerianModel::log_likelihood_reference(std::span<const double> theta) const {

@@ -1,11 +1,15 @@
 #include <doctest/doctest.h>
 
+#include <fmt/format.h>
+
 #include <cmath>
 #include <random>
+#include <string>
 
 #include "apsides/constants.h"
 #include "apsides/kepler.h"
 #include "apsides/keplerian_model.h"
+#include "test_support.h"
 
 using namespace apsides;
 using constants::kPi;
@@ -117,5 +121,56 @@ TEST_SUITE("keplerian_model") {
     CHECK(names[L.offset_index(1)] == "south.offset_ms");
     CHECK(names[L.jitter_index(1)] == "south.jitter_ms");
     CHECK(names[L.trend_index(1)] == "trend.c1_ms_per_d");
+  }
+
+  TEST_CASE("keplerian_model: offsets integrated analytically equal scipy's quadrature over their uniform priors") {
+    // Instrument 0's offset integrated out (uniform prior), instrument 1's kept; scipy
+    // integrates exp(ln L(g)) / (b - a) over g numerically. Once with the prior far wider
+    // than the likelihood, once truncated close to the best offset (the erf terms).
+    VelocityData d = make_random_data(14, 2, 5u);
+    ModelLayout L{1, 2, Trend::kNone, true};
+    KeplerianModel model(d, L);
+    std::vector<double> th(L.n_params());
+    put_planet(th, L, 0, Planet::from_elements(17.3, 6.0, 0.3, 1.1, 4.0));
+    th[L.offset_index(0)] = 123.0;  // ignored when integrated
+    th[L.jitter_index(0)] = 1.5;
+    th[L.offset_index(1)] = -1.2;
+    th[L.jitter_index(1)] = 0.7;
+    std::vector<double> planet(d.size());
+    model.planets_velocity(th, d.time_days, planet);
+    std::string r0, v0, r1, v1;
+    for (std::size_t i = 0; i < d.size(); ++i) {
+      const double res = d.velocity_m_s[i] - planet[i];
+      const double jit = d.instrument[i] == 0 ? 1.5 : 0.7;
+      const double var = d.uncertainty_m_s[i] * d.uncertainty_m_s[i] + jit * jit;
+      (d.instrument[i] == 0 ? r0 : r1) += fmt::format("{:.17g},", d.instrument[i] == 0 ? res : res + 1.2);
+      (d.instrument[i] == 0 ? v0 : v1) += fmt::format("{:.17g},", var);
+    }
+    std::vector<KeplerianModel::OffsetConditional> cond;
+    const KeplerianModel::IntegratedOffset wide{0, -300.0, 250.0};
+    const double ln_wide = model.log_likelihood_offsets_integrated(th, std::span(&wide, 1), &cond);
+    REQUIRE(cond.size() == 1);
+    const KeplerianModel::IntegratedOffset tight{0, cond[0].mean_m_s - 0.5 * cond[0].sd_m_s,
+                                                 cond[0].mean_m_s + 3.0 * cond[0].sd_m_s};
+    const double ln_tight = model.log_likelihood_offsets_integrated(th, std::span(&tight, 1));
+    auto by_scipy = [&](const KeplerianModel::IntegratedOffset& io) {
+      const auto r = test::run_python(fmt::format(
+          "import numpy as np\n"
+          "from scipy import integrate\n"
+          "r0 = np.array([{}]); v0 = np.array([{}]); r1 = np.array([{}]); v1 = np.array([{}])\n"
+          "def ln_l(r, v, g): return -0.5 * np.sum((r - g)**2 / v + np.log(2 * np.pi * v))\n"
+          "ghat = np.sum(r0 / v0) / np.sum(1 / v0); peak = ln_l(r0, v0, ghat)\n"
+          "a, b = {:.17g}, {:.17g}\n"
+          "val, err = integrate.quad(lambda g: np.exp(ln_l(r0, v0, g) - peak), a, b, points=[min(max(ghat, a), b)], "
+          "epsabs=0, epsrel=1e-12, limit=200)\n"
+          "print(repr(peak + np.log(val / (b - a)) + ln_l(r1, v1, 0.0)))\n",
+          r0, v0, r1, v1, io.lower_m_s, io.upper_m_s));
+      REQUIRE(r.status == 0);
+      return std::stod(r.output);
+    };
+    CHECK(ln_wide == doctest::Approx(by_scipy(wide)).epsilon(1e-10));
+    CHECK(ln_tight == doctest::Approx(by_scipy(tight)).epsilon(1e-10));
+    // Nothing integrated: the ordinary likelihood.
+    CHECK(model.log_likelihood_offsets_integrated(th, {}) == doctest::Approx(model.log_likelihood(th)).epsilon(1e-14));
   }
 }

@@ -136,8 +136,12 @@ TEST_SUITE("model_limits") {
     jump.coordinate = 0;
     jump.small_coordinate = -1;
     jump.redraw_uniform = {1};
-    jump.centres = {0.2, 0.85, 0.5};
-    jump.widths = {0.01, 0.01, 0.01};
+    for (double c : {0.2, 0.85, 0.5}) {
+      NestedProblem::Jump::Target t;
+      t.period_u = c;
+      t.period_w = 0.01;
+      jump.targets.push_back(t);
+    }
     p.jumps = {jump};
     std::vector<double> ln_z, mass_a;
     for (std::uint64_t seed = 1; seed <= 6; ++seed) {

@@ -35,6 +35,7 @@
 #include <cstdint>
 #include <functional>
 #include <limits>
+#include <random>
 #include <span>
 #include <string>
 #include <vector>
@@ -62,10 +63,15 @@ struct NestedProblem {
   // period `coordinate`, its amplitude `small_coordinate`, and `redraw_uniform`, e.g. its
   // phase), all other coordinates kept. The block is drawn from the mixture
   //   q = w_u (all uniform)
-  //     + w_peak (period from mean_m N(centre_m, width_m), each truncated to [0, 1); the
-  //               rest uniform)
+  //     + w_peak (a target m drawn by weight; period from N(period_u, period_w)
+  //               truncated to [0, 1); amplitude likewise when the target knows it, phase
+  //               from a wrapped normal when it knows it; the rest uniform)
   //     + w_small (amplitude uniform on [0, kappa), the rest uniform; kappa follows the
   //                live points' amplitudes, so this part proposes "no signal here")
+  //     + w_live  (the whole block near where some live point has a block: a kernel
+  //                density of the live points' blocks, pooled over the jumps; it moves
+  //                points between the modes that already hold live points at the rate
+  //                their volumes call for, instead of the slow copying of walk starts)
   // and accepted when inside the likelihood constraint and with probability
   // min(1, q(old) / q(new)). The walk still leaves the uniform distribution inside the
   // constraint invariant (the evidence is unchanged); what changes is how fast points
@@ -75,10 +81,31 @@ struct NestedProblem {
     int coordinate = 0;
     int small_coordinate = -1;
     std::vector<int> redraw_uniform;
-    std::vector<double> centres, widths;  // in the cube
-    double w_uniform = 0.2, w_peak = 0.4, w_small = 0.4;
+    int phase_coordinate = -1;  // a periodic coordinate (orbital phase) among redraw_uniform
+    struct Target {             // in the cube; NaN amplitude/phase: uniform
+      double period_u = 0.5, period_w = 0.1, weight = 1.0;
+      double amplitude_u = std::numeric_limits<double>::quiet_NaN(), amplitude_w = 0.1;
+      double phase_u = std::numeric_limits<double>::quiet_NaN(), phase_w = 0.1;
+    };
+    std::vector<Target> targets;
+    double w_uniform = 0.1, w_peak = 0.2, w_small = 0.2, w_live = 0.5;
   };
   std::vector<Jump> jumps;
+
+  // Optional, for a log_likelihood that integrates some parameters out analytically
+  // (make_rv_evidence_problem: instrument offsets). Called on every recorded point after
+  // the run. With `rng`, it draws those parameters into theta from their conditional
+  // posterior (so the weighted points are posterior draws of every parameter); without,
+  // it sets them to their best values. Either way it returns the full ln L at the theta it
+  // leaves (the best values give the profile likelihood, which max ln L reports).
+  std::function<double(std::span<double> theta, std::mt19937_64* rng)> complete_point;
+
+  // Optional posterior repartitioning (Chen, Feroz & Hobson 2019, arXiv:1908.04655): when
+  // >= 0, the prior transform draws from a modified prior pi~ and writes ln(pi~ / pi) at
+  // the point into theta[log_prior_ratio_index]; the sampler then works with
+  // ln L - ln(pi~ / pi), so L pi is unchanged and so are Z and the posterior. Samples
+  // report ln L and theta up to (not including) that index. It must be the last entry.
+  int log_prior_ratio_index = -1;
 };
 
 enum class NestedTermination {
@@ -125,7 +152,7 @@ struct NestedOptions {
 // One dead (or final live) point.
 struct NestedSample {
   std::vector<double> theta;
-  double ln_like = 0.0;
+  double ln_like = 0.0;  // ln L at theta (parameters integrated out: at their drawn values)
   double ln_prior_volume = 0.0;  // expected ln X at which the point was removed
   double ln_weight = 0.0;        // normalised posterior weight: sum exp(ln_weight) = 1
 };
@@ -136,6 +163,7 @@ struct NestedResult {
   double ln_evidence = -std::numeric_limits<double>::infinity();
   double ln_evidence_err = std::numeric_limits<double>::quiet_NaN();  // sqrt(H / n_live)
   double information_nats = std::numeric_limits<double>::quiet_NaN();  // H
+  // Best point visited (parameters integrated out: at their best values).
   double ln_like_max = -std::numeric_limits<double>::infinity();
   std::vector<double> theta_max_like;
   int live_points = 0;
@@ -190,22 +218,56 @@ struct EvidenceTransits {
   ModelPriors wide_priors;
 };
 
+//
+// Instrument offsets with uniform priors (the default) are integrated out analytically
+// (KeplerianModel::log_likelihood_offsets_integrated): exact, and each one removes a
+// dimension and its ln(prior width / posterior width) nats of information, the largest
+// share of H in a multi-instrument problem -- fewer nats means a smaller ln Z error for
+// the same live points. The samples get the offsets drawn from their conditional
+// posterior (NestedProblem::complete_point). When nothing else would be left to sample,
+// the first offset stays a coordinate.
 struct RvEvidenceProblem {
   NestedProblem problem;
+  int n_integrated_params = 0;       // offsets integrated out (free parameters all the same)
   std::size_t n_transit_points = 0;  // transit times in the likelihood
   double ln_evidence_offset = 0.0;  // to add to ln Z (ordering normalisation, see above)
   std::string ordering_note;        // how the labelling entered the evidence
   std::vector<std::string> prior_notes;  // one line per prior, for the report
 };
 //
-// `period_hints_days` (e.g. periodogram peaks and a planet search's periods) become mode
-// jumps (NestedProblem::Jump) on every ordered planet's period coordinate, with its phase
-// and K redrawn: they change how quickly narrow period modes are populated, not the
-// evidence.
+// `hints` (periodogram peaks, a planet search's planets) become mode-jump targets
+// (NestedProblem::Jump) on every ordered planet's block (period, K, e, omega, phase):
+// the period within about P^2 / baseline of the hint, K within half of it and the phase
+// within 0.08 cycles when the hint knows them. Weighted by `weight` (equal by default).
+//
+// The hints also repartition the period prior (NestedProblem::log_prior_ratio_index):
+// each ordered planet gets one more cube coordinate, a selector; with probability 1/2 its
+// period is drawn from the prior as usual, else uniformly (in the prior's CDF) inside one
+// hinted window of half-width ~ P^2 / (2 baseline), chosen by weight. The sampler's
+// likelihood is divided by pi~ / pi, so L pi -- the evidence and the posterior -- is
+// unchanged (Chen, Feroz & Hobson 2019). Why: a planet's period mode is a narrow peak in a
+// wide prior. Under the plain prior the peak holds a handful of live points when it
+// separates from the "no signal" region, and nested sampling then grows that handful by
+// copying walk starts; the few points' chance count sets ln Z, which scattered by 1-2
+// nats between seeds on the bundled demo (stated error 0.4). With the windows the peak
+// starts with tens of points, and the scatter matches the stated error
+// (tests/evidence_test.cpp measures it on a simulated system).
+//
+// Neither the jumps nor the repartitioning change the evidence; both change how well a
+// finite run finds it.
+struct WeightedHint {
+  SignalHint signal;
+  double weight = 1.0;
+};
 RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const ModelPriors& priors,
                                            bool phase_conjunction = true,
                                            const EvidenceTransits* transits = nullptr,
-                                           std::span<const double> period_hints_days = {});
+                                           std::span<const WeightedHint> hints = {});
+
+// The best sinusoid at `period_days` (weighted least squares with one offset per
+// instrument) as a signal: K = its amplitude, t_conj where a circular orbit's velocity
+// crosses zero going down (the conjunction of the model's convention).
+SignalHint sinusoid_hint(const VelocityData& data, double period_days);
 
 // ---------------------------------------------------------------------------------------
 // Model comparison over 0..N planets.
@@ -251,10 +313,11 @@ struct CompareOptions {
   // Raftery call ln B > 5 "very strong".
   double bayes_threshold = 5.0;
   bool phase_conjunction = true;  // see make_rv_evidence_problem
-  // Periods the nested sampler may jump to (make_rv_evidence_problem), added to the 20
-  // strongest peaks of the velocities' periodogram, which are always used; callers that
-  // ran a planet search should pass its periods.
-  std::vector<double> period_hints_days;
+  // Signals the nested sampler may jump to (make_rv_evidence_problem): callers that ran a
+  // planet search should pass its planets (search_signals). They share half the jump
+  // targets' weight; the 20 strongest peaks of the velocities' periodogram (with the
+  // sinusoid's K and phase, sinusoid_hint), always used, share the other half.
+  std::vector<SignalHint> search_hints;
   std::string Validate() const;
 };
 

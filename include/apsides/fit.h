@@ -204,9 +204,10 @@ ModelPriors problem_priors(const SearchProblem& problem, const ModelLayout& layo
 // Builds the FitProblem for `n_planets` planets from a SearchProblem.
 FitProblem make_fit_problem(const SearchProblem& problem, int n_planets);
 
-// Every planet period a search found (all its steps) and the residual peak that stopped
-// it: targets for nested sampling's mode jumps (CompareOptions::period_hints_days).
-std::vector<double> search_periods(const SearchResult& result);
+// Every planet a search found (all its steps: period, K, t_conj) and the residual peak
+// that stopped it (period only): targets for nested sampling's mode jumps
+// (CompareOptions::search_hints).
+std::vector<SignalHint> search_signals(const SearchResult& result);
 
 SearchResult search_planets(const SearchProblem& problem, const SearchOptions& options);
 

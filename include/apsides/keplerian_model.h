@@ -14,6 +14,7 @@
 #pragma once
 
 #include <cstddef>
+#include <limits>
 #include <span>
 #include <string>
 #include <vector>
@@ -21,6 +22,14 @@
 #include "apsides/data.h"
 
 namespace apsides {
+
+// A guess at a periodic signal (a periodogram peak, a planet a search found): where
+// nested sampling's mode jumps aim (evidence.h). K and t_conj are NaN when unknown.
+struct SignalHint {
+  double period_days = 0.0;
+  double semi_amplitude_m_s = std::numeric_limits<double>::quiet_NaN();
+  double t_conj_days = std::numeric_limits<double>::quiet_NaN();  // days after the reference epoch
+};
 
 // One planet in the sampling coordinates.
 struct Planet {
@@ -104,6 +113,26 @@ class KeplerianModel {
   double log_likelihood(std::span<const double> theta) const;
   // Plain scalar implementation of the same, the reference for tests.
   double log_likelihood_reference(std::span<const double> theta) const;
+
+  // Instrument offsets integrated out analytically, for the evidence. The likelihood is
+  // Gaussian in each instrument's offset g, whose points it alone shifts, so under a
+  // uniform prior on [lower, upper] (density 1 / (upper - lower))
+  //   int L dg / (upper - lower) = L(g_hat) sqrt(2 pi / S) [Phi(z_upper) - Phi(z_lower)] / (upper - lower),
+  // g_hat = the weighted-mean residual, S = sum 1 / var_i, z = (bound - g_hat) sqrt(S):
+  // exact, truncation included. Returns ln of that, with the listed instruments' offsets
+  // integrated out and their entries in theta ignored. With `conditionals`, also each
+  // listed offset's conditional posterior given the rest of theta: normal(mean, sd)
+  // truncated to [lower, upper].
+  struct IntegratedOffset {
+    int instrument = 0;
+    double lower_m_s = 0.0, upper_m_s = 0.0;
+  };
+  struct OffsetConditional {
+    double mean_m_s = 0.0, sd_m_s = 0.0, lower_m_s = 0.0, upper_m_s = 0.0;
+  };
+  double log_likelihood_offsets_integrated(std::span<const double> theta,
+                                           std::span<const IntegratedOffset> integrated,
+                                           std::vector<OffsetConditional>* conditionals = nullptr) const;
 
   // Sum of the planets' velocities (no offsets or trend) at arbitrary times.
   void planets_velocity(std::span<const double> theta, std::span<const double> t_days,

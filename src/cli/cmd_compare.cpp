@@ -127,7 +127,7 @@ Command register_compare(CLI::App& app) {
             if (opt.max_planets > 0) {
               SearchOptions so = search_options(project);
               so.max_planets = opt.max_planets;
-              opt.period_hints_days = search_periods(search_planets(problem, so));
+              opt.search_hints = search_signals(search_planets(problem, so));
             }
             if (!args->common.quiet) {
               fmt::print(stderr, "Nested sampling for {}..{} planets: {} points, {} instrument(s), {} live points.\n",

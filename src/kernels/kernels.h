@@ -40,4 +40,15 @@ double block_lnlike(const double* t, const double* y, const double* sigma2, std:
                     const KeplerTerm* planets, int n_planets, double offset, double jitter2,
                     double c1, double c2, double* scratch);
 
+// The same block with its offset left free: the best (weighted-mean) offset, the
+// chi-square there, sum 1/var_i and sum ln var_i. With them the likelihood at any offset g
+// is -1/2 [chi2_min + S (g - offset)^2 + log_det + n ln 2 pi], S = sum_inverse_variance,
+// which is what integrating the offset out analytically needs.
+struct OffsetFreeFit {
+  double offset = 0.0, chi2_min = 0.0, sum_inverse_variance = 0.0, log_det = 0.0;
+};
+OffsetFreeFit block_offset_fit(const double* t, const double* y, const double* sigma2, std::size_t n,
+                               const KeplerTerm* planets, int n_planets, double jitter2, double c1, double c2,
+                               double* scratch);
+
 }  // namespace apsides::kernels

@@ -68,4 +68,28 @@ double block_lnlike(const double* __restrict t, const double* __restrict y,
   return -0.5 * (chi2 + logdet + static_cast<double>(n) * kLn2Pi);
 }
 
+OffsetFreeFit block_offset_fit(const double* __restrict t, const double* __restrict y,
+                               const double* __restrict sigma2, std::size_t n, const KeplerTerm* planets,
+                               int n_planets, double jitter2, double c1, double c2, double* __restrict scratch) {
+  double* __restrict r = scratch;
+  for (std::size_t i = 0; i < n; ++i) r[i] = y[i] - (c1 + c2 * t[i]) * t[i];
+  detail::KeplerBlock b;
+  for (int k = 0; k < n_planets; ++k) accumulate(t, n, prepare(planets[k]), -1.0, r, b);
+  OffsetFreeFit f;
+  double sr = 0.0;
+  for (std::size_t i = 0; i < n; ++i) {
+    const double var = sigma2[i] + jitter2;
+    f.sum_inverse_variance += 1.0 / var;
+    sr += r[i] / var;
+    f.log_det += std::log(var);
+  }
+  f.offset = sr / f.sum_inverse_variance;
+  // Second pass about the best offset: no cancellation however large the offset is.
+  for (std::size_t i = 0; i < n; ++i) {
+    const double d = r[i] - f.offset;
+    f.chi2_min += d * d / (sigma2[i] + jitter2);
+  }
+  return f;
+}
+
 }  // namespace apsides::kernels

@@ -56,7 +56,7 @@ void BM_DemoCompareTwoPlanets(benchmark::State& state) {
   opt.nested.threads = 2;
   apsides::SearchOptions so = apsides::search_options(project);
   so.max_planets = 2;
-  opt.period_hints_days = apsides::search_periods(apsides::search_planets(problem, so));
+  opt.search_hints = apsides::search_signals(apsides::search_planets(problem, so));
   auto priors_for = [&](const apsides::ModelLayout& l) { return apsides::problem_priors(problem, l); };
   for (auto _ : state) {
     const auto r = apsides::compare_planet_counts(data, base, priors_for, opt, {}, &transits);
