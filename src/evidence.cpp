@@ -138,21 +138,10 @@ struct WalkOutcome {
   bool ok = false;
 };
 
-// Normal(c, w) truncated to [0, 1): density at u.
-double truncated_density(double u, double c, double w) {
+// Mass of normal(c, w) inside [0, 1).
+double unit_mass(double c, double w) {
   const double r = 1.0 / (w * std::sqrt(2.0));
-  const double mass = 0.5 * (std::erf((1.0 - c) * r) - std::erf(-c * r));
-  const double z = (u - c) / w;
-  return std::exp(-0.5 * z * z) / (w * std::sqrt(2.0 * constants::kPi) * std::max(mass, 1e-300));
-}
-// Normal(c, w) wrapped onto [0, 1) (w well below 1): density at u.
-double wrapped_density(double u, double c, double w) {
-  double g = 0.0;
-  for (int k = -2; k <= 2; ++k) {
-    const double z = (u - c + k) / w;
-    g += std::exp(-0.5 * z * z);
-  }
-  return g / (w * std::sqrt(2.0 * constants::kPi));
+  return std::max(0.5 * (std::erf((1.0 - c) * r) - std::erf(-c * r)), 1e-300);
 }
 double truncated_draw(double c, double w, std::mt19937_64& rng) {
   std::normal_distribution<double> gauss(c, w);
@@ -163,19 +152,14 @@ double truncated_draw(double c, double w, std::mt19937_64& rng) {
   return std::clamp(c, 0.0, std::nextafter(1.0, 0.0));  // a centre far outside: never in practice
 }
 
-// Density of the targets part of a mode jump at y (see NestedProblem::Jump).
-double targets_density(const NestedProblem::Jump& j, const Eigen::VectorXd& y) {
-  double g = 0.0, total = 0.0;
-  for (const auto& t : j.targets) {
-    double d = truncated_density(y[j.coordinate], t.period_u, t.period_w);
-    if (j.small_coordinate >= 0 && std::isfinite(t.amplitude_u))
-      d *= truncated_density(y[j.small_coordinate], t.amplitude_u, t.amplitude_w);
-    if (j.phase_coordinate >= 0 && std::isfinite(t.phase_u)) d *= wrapped_density(y[j.phase_coordinate], t.phase_u, t.phase_w);
-    g += t.weight * d;
-    total += t.weight;
-  }
-  return total > 0.0 ? g / total : 1.0;
-}
+// A jump with what its proposal density needs precomputed (per run): the block's
+// coordinates, and per target the log of the normalising constants (truncation masses,
+// 1 / (w sqrt(2 pi)), weight share).
+struct PreparedJump {
+  const NestedProblem::Jump* jump = nullptr;
+  std::vector<int> block;
+  std::vector<double> ln_norm;  // per target
+};
 
 // The cube coordinates of a jump's block, in the order period, amplitude, the rest.
 std::vector<int> jump_block(const NestedProblem::Jump& j) {
@@ -185,129 +169,176 @@ std::vector<int> jump_block(const NestedProblem::Jump& j) {
   return c;
 }
 
-// The live points' blocks as a kernel density: every live point's block of every jump
-// (the jumps' blocks are pooled: a planet's block may land where another planet's sits in
-// some live point), a Gaussian kernel around each, in coordinates whitened by the blocks'
-// covariance, of width half the distance to its 5th nearest neighbour (so a tight cluster
-// gets tight kernels). Rebuilt every few iterations from the live points; fixed while the
-// walks run, so the jumps stay exact Metropolis-Hastings moves.
+PreparedJump prepare_jump(const NestedProblem::Jump& j) {
+  PreparedJump pj;
+  pj.jump = &j;
+  pj.block = jump_block(j);
+  double total = 0.0;
+  for (const auto& t : j.targets) total += t.weight;
+  const double ln_gauss = -0.5 * std::log(2.0 * constants::kPi);
+  for (const auto& t : j.targets) {
+    double ln = std::log(t.weight / total) + ln_gauss - std::log(t.period_w) - std::log(unit_mass(t.period_u, t.period_w));
+    if (j.small_coordinate >= 0 && std::isfinite(t.amplitude_u))
+      ln += ln_gauss - std::log(t.amplitude_w) - std::log(unit_mass(t.amplitude_u, t.amplitude_w));
+    if (j.phase_coordinate >= 0 && std::isfinite(t.phase_u)) ln += ln_gauss - std::log(t.phase_w);
+    pj.ln_norm.push_back(ln);
+  }
+  return pj;
+}
+
+// Density of the targets part of a mode jump at y (see NestedProblem::Jump). Terms more
+// than 8 widths away in any coordinate (relative size < e^-32) are left out, and the
+// wrapped phase uses its nearest image (widths <= 0.1 cycle: the others are < e^-12 of it
+// at the far side, and the draw is truncated to match, see jump_draw).
+double targets_density(const PreparedJump& pj, const Eigen::VectorXd& y) {
+  const NestedProblem::Jump& j = *pj.jump;
+  double g = 0.0;
+  for (std::size_t m = 0; m < j.targets.size(); ++m) {
+    const auto& t = j.targets[m];
+    const double zp = (y[j.coordinate] - t.period_u) / t.period_w;
+    if (std::fabs(zp) > 8.0) continue;
+    double e = zp * zp;
+    if (j.small_coordinate >= 0 && std::isfinite(t.amplitude_u)) {
+      const double z = (y[j.small_coordinate] - t.amplitude_u) / t.amplitude_w;
+      e += z * z;
+    }
+    if (j.phase_coordinate >= 0 && std::isfinite(t.phase_u)) {
+      double dph = y[j.phase_coordinate] - t.phase_u;
+      dph -= std::round(dph);
+      const double z = dph / t.phase_w;
+      e += z * z;
+    }
+    if (e < 128.0) g += std::exp(pj.ln_norm[m] - 0.5 * e);
+  }
+  return j.targets.empty() ? 1.0 : g;
+}
+
+// The live points' blocks as a kernel density: the blocks of every jump in up to
+// kMaxKernels live points (the jumps' blocks are pooled: a planet's block may land where
+// another planet's sits in some live point), a Gaussian kernel around each, in
+// coordinates whitened by the blocks' covariance, of width half the distance to its 5th
+// nearest neighbour (so a tight cluster gets tight kernels). Rebuilt every few
+// iterations from the live points; fixed while the walks run, so the jumps stay exact
+// Metropolis-Hastings moves.
 class LiveKernels {
  public:
-  int block_size() const { return block_; }
-  bool empty() const { return centres_.empty(); }
+  static constexpr std::size_t kMaxKernels = 192;
+  bool empty() const { return m_ == 0; }
 
-  void build(const std::vector<LivePoint>& live, const std::vector<NestedProblem::Jump>& jumps) {
-    centres_.clear();
-    block_ = 0;
+  void build(const std::vector<LivePoint>& live, const std::vector<PreparedJump>& jumps) {
+    m_ = 0;
     if (jumps.empty()) return;
-    block_ = static_cast<int>(jump_block(jumps.front()).size());
-    std::vector<std::vector<int>> blocks;
-    for (const auto& j : jumps) {
-      blocks.push_back(jump_block(j));
-      if (static_cast<int>(blocks.back().size()) != block_) {
-        block_ = 0;  // blocks of different shapes: no pooled kernels
-        return;
-      }
-    }
-    const int D = block_;
-    const std::size_t m = live.size() * blocks.size();
+    D_ = static_cast<int>(jumps.front().block.size());
+    for (const auto& j : jumps)
+      if (static_cast<int>(j.block.size()) != D_) return;  // blocks of different shapes: no pooled kernels
+    if (D_ > kMaxBlock) return;
+    const int D = D_;
+    const std::size_t all = live.size() * jumps.size();
+    const std::size_t stride = (all + kMaxKernels - 1) / kMaxKernels;
+    const std::size_t m = (all + stride - 1) / stride;
+    if (m < 2) return;
     Eigen::MatrixXd x(static_cast<Eigen::Index>(m), D);
-    std::size_t r = 0;
-    for (const auto& lp : live)
-      for (const auto& bl : blocks) {
-        for (int c = 0; c < D; ++c) x(static_cast<Eigen::Index>(r), c) = lp.u[static_cast<std::size_t>(bl[static_cast<std::size_t>(c)])];
-        ++r;
-      }
+    for (std::size_t r = 0; r < m; ++r) {
+      const std::size_t q = r * stride;
+      const LivePoint& lp = live[q / jumps.size()];
+      const auto& bl = jumps[q % jumps.size()].block;
+      for (int c = 0; c < D; ++c) x(static_cast<Eigen::Index>(r), c) = lp.u[static_cast<std::size_t>(bl[static_cast<std::size_t>(c)])];
+    }
     mean_ = x.colwise().mean().transpose();
     const Eigen::MatrixXd centred = x.rowwise() - mean_.transpose();
     Eigen::MatrixXd cov = centred.transpose() * centred / std::max(1.0, static_cast<double>(m) - 1.0);
     cov.diagonal().array() += 1e-12;
     Eigen::LLT<Eigen::MatrixXd> llt(cov);
-    if (llt.info() != Eigen::Success) {
-      block_ = 0;
-      return;
-    }
+    if (llt.info() != Eigen::Success) return;
     chol_ = llt.matrixL();
     const Eigen::MatrixXd w = llt.matrixL().solve(centred.transpose());  // D x m, whitened
     double ln_det = 0.0;
     for (int c = 0; c < D; ++c) ln_det += std::log(chol_(c, c));
     const std::size_t k = std::min<std::size_t>(5, m - 1);
-    centres_.assign(m, Eigen::VectorXd());
+    centres_.assign(w.data(), w.data() + w.size());  // column i = centre i
     ln_norm_.assign(m, 0.0);
     inv_two_h2_.assign(m, 0.0);
     h_.assign(m, 0.0);
     std::vector<double> d2(m);
     for (std::size_t i = 0; i < m; ++i) {
-      centres_[i] = w.col(static_cast<Eigen::Index>(i));
-      for (std::size_t j = 0; j < m; ++j) d2[j] = (w.col(static_cast<Eigen::Index>(j)) - centres_[i]).squaredNorm();
+      for (std::size_t j = 0; j < m; ++j) d2[j] = (w.col(static_cast<Eigen::Index>(j)) - w.col(static_cast<Eigen::Index>(i))).squaredNorm();
       d2[i] = kInf;
       std::nth_element(d2.begin(), d2.begin() + static_cast<std::ptrdiff_t>(k - 1), d2.end());
       const double h = std::max(0.5 * std::sqrt(d2[k - 1]), 1e-6);
       h_[i] = h;
       inv_two_h2_[i] = 0.5 / (h * h);
-      ln_norm_[i] = -D * std::log(h) - 0.5 * D * std::log(2.0 * constants::kPi) - ln_det -
-                    std::log(static_cast<double>(m));
+      ln_norm_[i] = -D * std::log(h) - 0.5 * D * std::log(2.0 * constants::kPi) - ln_det - std::log(static_cast<double>(m));
     }
+    m_ = m;
   }
 
-  // Density at the block's cube coordinates.
-  double density(const Eigen::VectorXd& y) const {
-    const Eigen::VectorXd w = chol_.triangularView<Eigen::Lower>().solve(y - mean_);
+  // Density at the block's cube coordinates y[block[c]].
+  double density(const Eigen::VectorXd& y, const std::vector<int>& block) const {
+    std::array<double, kMaxBlock> w{};
+    for (int r = 0; r < D_; ++r) {  // forward substitution: w = L^-1 (y_block - mean)
+      double v = y[block[static_cast<std::size_t>(r)]] - mean_[r];
+      for (int c = 0; c < r; ++c) v -= chol_(r, c) * w[static_cast<std::size_t>(c)];
+      w[static_cast<std::size_t>(r)] = v / chol_(r, r);
+    }
     double q = 0.0;
-    for (std::size_t i = 0; i < centres_.size(); ++i) {
-      const double e = ln_norm_[i] - (w - centres_[i]).squaredNorm() * inv_two_h2_[i];
-      if (e > -60.0) q += std::exp(e);
+    const double* ctr = centres_.data();
+    for (std::size_t i = 0; i < m_; ++i, ctr += D_) {
+      double d2 = 0.0;
+      for (int c = 0; c < D_; ++c) {
+        const double t = w[static_cast<std::size_t>(c)] - ctr[c];
+        d2 += t * t;
+      }
+      const double e = d2 * inv_two_h2_[i];
+      if (e < 60.0) q += std::exp(ln_norm_[i] - e);
     }
     return q;
   }
 
-  Eigen::VectorXd draw(std::mt19937_64& rng) const {
-    std::uniform_int_distribution<std::size_t> pick(0, centres_.size() - 1);
+  void draw(Eigen::VectorXd& y, const std::vector<int>& block, std::mt19937_64& rng) const {
+    std::uniform_int_distribution<std::size_t> pick(0, m_ - 1);
     std::normal_distribution<double> gauss(0.0, 1.0);
     const std::size_t i = pick(rng);
-    Eigen::VectorXd z(block_);
-    for (int c = 0; c < block_; ++c) z[c] = centres_[i][c] + h_[i] * gauss(rng);
-    return mean_ + chol_ * z;
+    Eigen::VectorXd z(D_);
+    for (int c = 0; c < D_; ++c) z[c] = centres_[i * static_cast<std::size_t>(D_) + static_cast<std::size_t>(c)] + h_[i] * gauss(rng);
+    const Eigen::VectorXd b = mean_ + chol_ * z;
+    for (int c = 0; c < D_; ++c) y[block[static_cast<std::size_t>(c)]] = b[c];
   }
 
  private:
-  int block_ = 0;
+  static constexpr int kMaxBlock = 16;
+  int D_ = 0;
+  std::size_t m_ = 0;
   Eigen::VectorXd mean_;
   Eigen::MatrixXd chol_;
-  std::vector<Eigen::VectorXd> centres_;
+  std::vector<double> centres_;  // m_ x D_, whitened
   std::vector<double> ln_norm_, inv_two_h2_, h_;
 };
 
 // Density of a jump's proposal at the point y (only its block matters).
-double jump_density(const NestedProblem::Jump& j, double kappa, const LiveKernels& kde, const Eigen::VectorXd& y) {
+double jump_density(const PreparedJump& pj, double kappa, const LiveKernels& kde, const Eigen::VectorXd& y) {
+  const NestedProblem::Jump& j = *pj.jump;
   const double wp = j.targets.empty() ? 0.0 : j.w_peak;
   const double ws = j.small_coordinate >= 0 ? j.w_small : 0.0;
   const double wl = kde.empty() ? 0.0 : j.w_live;
   const double norm = j.w_uniform + wp + ws + wl;
   double q = j.w_uniform;
-  if (wp > 0.0) q += wp * targets_density(j, y);
+  if (wp > 0.0) q += wp * targets_density(pj, y);
   if (ws > 0.0 && y[j.small_coordinate] < kappa) q += ws / kappa;
-  if (wl > 0.0) {
-    const std::vector<int> bl = jump_block(j);
-    Eigen::VectorXd b(static_cast<Eigen::Index>(bl.size()));
-    for (std::size_t c = 0; c < bl.size(); ++c) b[static_cast<Eigen::Index>(c)] = y[bl[c]];
-    q += wl * kde.density(b);
-  }
+  if (wl > 0.0) q += wl * kde.density(y, pj.block);
   return q / norm;
 }
 
 // Draws a jump block into y (period, amplitude, uniform coordinates).
-void jump_draw(const NestedProblem::Jump& j, double kappa, const LiveKernels& kde, Eigen::VectorXd& y,
+void jump_draw(const PreparedJump& pj, double kappa, const LiveKernels& kde, Eigen::VectorXd& y,
                std::mt19937_64& rng) {
+  const NestedProblem::Jump& j = *pj.jump;
   std::uniform_real_distribution<double> unif(0.0, 1.0);
   const double wp = j.targets.empty() ? 0.0 : j.w_peak;
   const double ws = j.small_coordinate >= 0 ? j.w_small : 0.0;
   const double wl = kde.empty() ? 0.0 : j.w_live;
   const double r = unif(rng) * (j.w_uniform + wp + ws + wl);
   if (r >= j.w_uniform + wp + ws) {
-    const Eigen::VectorXd b = kde.draw(rng);
-    const std::vector<int> bl = jump_block(j);
-    for (std::size_t c = 0; c < bl.size(); ++c) y[bl[c]] = b[static_cast<Eigen::Index>(c)];
+    kde.draw(y, pj.block, rng);
     return;  // may fall outside the cube: rejected there (q is the untruncated mixture)
   }
   y[j.coordinate] = unif(rng);
@@ -325,7 +356,11 @@ void jump_draw(const NestedProblem::Jump& j, double kappa, const LiveKernels& kd
     if (j.small_coordinate >= 0 && std::isfinite(t.amplitude_u))
       y[j.small_coordinate] = truncated_draw(t.amplitude_u, t.amplitude_w, rng);
     if (j.phase_coordinate >= 0 && std::isfinite(t.phase_u)) {
-      const double v = std::normal_distribution<double>(t.phase_u, t.phase_w)(rng);
+      // Within half a cycle of the centre, wrapped (the density uses the nearest image).
+      double v;
+      do v = std::normal_distribution<double>(0.0, t.phase_w)(rng);
+      while (std::fabs(v) >= 0.5);
+      v += t.phase_u;
       y[j.phase_coordinate] = v - std::floor(v);
     }
     return;
@@ -337,7 +372,7 @@ void jump_draw(const NestedProblem::Jump& j, double kappa, const LiveKernels& kd
 // mode-jump attempts between slice moves.
 WalkOutcome slice_walk(const Evaluator& eval, const LivePoint& start, double ln_like_min,
                        const Eigen::MatrixXd& chol, int steps, std::mt19937_64& rng,
-                       const std::vector<NestedProblem::Jump>& jumps, const std::vector<double>& kappas,
+                       const std::vector<PreparedJump>& jumps, const std::vector<double>& kappas,
                        const LiveKernels& kde, double jumps_per_step) {
   const int d = static_cast<int>(start.u.size());
   std::uniform_real_distribution<double> unif(0.0, 1.0);
@@ -394,7 +429,7 @@ WalkOutcome slice_walk(const Evaluator& eval, const LivePoint& start, double ln_
     for (int q = 0; q < n_jumps; ++q) {
       std::uniform_int_distribution<std::size_t> pick(0, jumps.size() - 1);
       const std::size_t which = pick(rng);
-      const NestedProblem::Jump& jp = jumps[which];
+      const PreparedJump& jp = jumps[which];
       const double kappa = kappas[which];
       y = x;
       jump_draw(jp, kappa, kde, y, rng);
@@ -452,7 +487,9 @@ NestedResult run_nested_sampling(const NestedProblem& problem, const NestedOptio
   const int p = problem.n_params > 0 ? problem.n_params : d;
   const int n = options.live_points;
   const int batch = options.batch_size;
-  const int steps = options.slice_steps > 0 ? options.slice_steps : 3 * d;
+  const int steps = options.slice_steps > 0
+                        ? options.slice_steps
+                        : std::max(1, static_cast<int>(std::lround(problem.slice_steps_per_dimension * d)));
   const int n_threads = options.threads > 0 ? options.threads
                                             : std::max(1, static_cast<int>(std::thread::hardware_concurrency()));
   Workers workers(n_threads);
@@ -488,6 +525,8 @@ NestedResult run_nested_sampling(const NestedProblem& problem, const NestedOptio
   res.termination = NestedTermination::kConverged;
   LiveKernels kernels;
   constexpr long kKernelRefresh = 20;
+  std::vector<PreparedJump> prepared;
+  for (const auto& j : problem.jumps) prepared.push_back(prepare_jump(j));
   for (long it = 0;; ++it) {
     double ln_like_max = -kInf;
     for (const auto& l : live) ln_like_max = std::max(ln_like_max, l.ln_like);
@@ -559,7 +598,7 @@ NestedResult run_nested_sampling(const NestedProblem& problem, const NestedOptio
       }
     }
     // The live points' kernel density for the jumps, refreshed every few iterations.
-    if (!problem.jumps.empty() && it % kKernelRefresh == 0) kernels.build(live, problem.jumps);
+    if (!prepared.empty() && it % kKernelRefresh == 0) kernels.build(live, prepared);
     const std::uint64_t first_stream = replacement_stream;
     replacement_stream += static_cast<std::uint64_t>(batch);
     workers.run(batch, [&](int j) {
@@ -567,7 +606,7 @@ NestedResult run_nested_sampling(const NestedProblem& problem, const NestedOptio
       std::uniform_int_distribution<std::size_t> pick(0, starts.size() - 1);
       const LivePoint& start = live[static_cast<std::size_t>(starts[pick(rng)])];
       outcomes[static_cast<std::size_t>(j)] =
-          slice_walk(eval, start, ln_like_star, chol, steps, rng, problem.jumps, kappas, kernels, options.jumps_per_step);
+          slice_walk(eval, start, ln_like_star, chol, steps, rng, prepared, kappas, kernels, options.jumps_per_step);
     });
     bool failed = false;
     for (int j = 0; j < batch; ++j) {
@@ -729,27 +768,50 @@ bool same_ecc_prior(const EccentricityPrior& a, const EccentricityPrior& b) {
 // Where each cube coordinate goes.
 enum class SlotKind { kPlain, kEccentricity, kOmega, kPhase, kTransitPeriod, kTransitPhase, kSelector };
 
-// Posterior repartitioning of one planet's period (see make_rv_evidence_problem): with
-// probability alpha the period's cube coordinate is drawn uniformly inside one of the
-// hinted windows [lo_m, hi_m) (chosen by weight), else from the prior.
-struct PeriodRepartition {
-  int planet = 0;
-  std::size_t period_slot = 0, selector_slot = 0, theta_index = 0;
-  std::vector<double> lo, hi, cum_weight;  // cum_weight: cumulative, last = 1
-  std::vector<double> weight;
-  // Cube coordinate y of the period from (u, selector).
-  double map(double u, double s, double alpha) const {
-    if (s >= alpha) return u;
-    const double r = s / alpha;
-    std::size_t m = 0;
-    while (m + 1 < cum_weight.size() && r >= cum_weight[m]) ++m;
-    return lo[m] + u * (hi[m] - lo[m]);
+// Posterior repartitioning of some cube coordinates (see make_rv_evidence_problem): with
+// probability alpha (the selector coordinate below alpha) they are drawn uniformly inside
+// one window (a box: an interval per coordinate), chosen by weight; else from the prior.
+struct Repartition {
+  std::size_t selector_slot = 0;
+  std::vector<std::size_t> slots;               // the coordinates it moves
+  std::vector<std::vector<double>> lo, hi;      // per window, per coordinate
+  std::vector<double> weight, cum_weight;       // per window; normalised, cumulative
+  void add_window(std::vector<double> l, std::vector<double> h, double w) {
+    lo.push_back(std::move(l));
+    hi.push_back(std::move(h));
+    weight.push_back(w);
   }
-  // ln(pi~ / pi) at y.
-  double ln_ratio(double y, double alpha) const {
+  void normalise() {
+    double total = 0.0;
+    for (double w : weight) total += w;
+    double cum = 0.0;
+    cum_weight.clear();
+    for (double& w : weight) {
+      w /= total;
+      cum += w;
+      cum_weight.push_back(cum);
+    }
+    cum_weight.back() = 1.0;
+  }
+  // Moves the coordinates of `u` in place (from the prior draw to pi~'s) and returns
+  // ln(pi~ / pi) at the result.
+  double apply(std::vector<double>& u, double alpha) const {
+    const double s = u[selector_slot];
+    if (s < alpha) {
+      const double r = s / alpha;
+      std::size_t m = 0;
+      while (m + 1 < cum_weight.size() && r >= cum_weight[m]) ++m;
+      for (std::size_t c = 0; c < slots.size(); ++c) u[slots[c]] = lo[m][c] + u[slots[c]] * (hi[m][c] - lo[m][c]);
+    }
     double q = 1.0 - alpha;
-    for (std::size_t m = 0; m < lo.size(); ++m)
-      if (y >= lo[m] && y < hi[m]) q += alpha * weight[m] / (hi[m] - lo[m]);
+    for (std::size_t m = 0; m < weight.size(); ++m) {
+      double d = alpha * weight[m];
+      for (std::size_t c = 0; c < slots.size() && d > 0.0; ++c) {
+        const double y = u[slots[c]];
+        d = (y >= lo[m][c] && y < hi[m][c]) ? d / (hi[m][c] - lo[m][c]) : 0.0;
+      }
+      q += d;
+    }
     return std::log(q);
   }
 };
@@ -946,6 +1008,12 @@ RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const Mo
   std::vector<Prior> extra_period_priors, extra_t_priors;
   std::size_t n_total = n_params;
   std::vector<std::string> all_names = names;
+  struct TransitWindowSpec {
+    TransitData td;
+    int period_slot = -1, phase_slot = -1;  // cube coordinates (-1: none)
+    Prior pp, tp;                           // period and t_conj priors
+  };
+  std::vector<TransitWindowSpec> transit_windows;
   if (transits != nullptr && transits->times.size() > 0) {
     for (int j = 0; j < 26; ++j) {
       const TransitData td = transits->times.for_planet(planet_label(j));
@@ -954,12 +1022,20 @@ RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const Mo
       if (j < k) {
         terms.push_back({static_cast<std::size_t>(5 * j), static_cast<std::size_t>(5 * j + 4),
                          layout.transit_jitter_index(j), like});
+        TransitWindowSpec w{td, -1, -1, priors.parameter[static_cast<std::size_t>(5 * j)],
+                            priors.parameter[static_cast<std::size_t>(5 * j + 4)]};
+        for (std::size_t c = 0; c < slots.size(); ++c) {
+          if (slots[c].kind == SlotKind::kPlain && slots[c].index == static_cast<std::size_t>(5 * j)) w.period_slot = static_cast<int>(c);
+          if (slots[c].kind == SlotKind::kPhase && slots[c].planet == j) w.phase_slot = static_cast<int>(c);
+        }
+        transit_windows.push_back(std::move(w));
         continue;
       }
       if (transits->wide_priors.parameter.size() < static_cast<std::size_t>(5 * j + 5))
         throw InputError(fmt::format("evidence: no priors for planet '{}' named by transit times", planet_label(j)));
       const Prior& pp = transits->wide_priors.parameter[static_cast<std::size_t>(5 * j)];
       const Prior& tp = transits->wide_priors.parameter[static_cast<std::size_t>(5 * j + 4)];
+      transit_windows.push_back({td, static_cast<int>(slots.size()), static_cast<int>(slots.size()) + 1, pp, tp});
       slots.push_back({SlotKind::kTransitPeriod, n_total, j});
       slots.push_back({SlotKind::kTransitPhase, n_total + 1, j});
       extra_period_priors.push_back(pp);
@@ -986,7 +1062,53 @@ RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const Mo
   }
   out.n_integrated_params = static_cast<int>(integrated.size());
 
-  std::vector<PeriodRepartition> repartitions;
+  std::vector<Repartition> repartitions;
+  // A transiting planet's period and phase: a window of +-20 sigma around the linear
+  // ephemeris of its transit times (a box in the two coordinates).
+  for (const TransitWindowSpec& w : transit_windows) {
+    if (w.period_slot < 0) continue;
+    EphemerisResult eph;
+    try {
+      eph = fit_ephemeris(w.td);
+    } catch (const InputError&) {
+      continue;  // fewer than two transits: no window
+    }
+    const double p_hat = eph.period_days.value, sp = eph.period_days.err;
+    if (!(std::isfinite(p_hat) && std::isfinite(sp) && sp > 0.0) || !(p_hat > w.pp.lower() && p_hat < w.pp.upper()) ||
+        !std::isfinite(w.pp.log_density(p_hat)))
+      continue;
+    const double up = prior_cdf(w.pp, p_hat);
+    const double hp = std::clamp(std::exp(w.pp.log_density(p_hat)) * 20.0 * sp, 1e-12, 0.1);
+    Repartition rep;
+    rep.slots = {static_cast<std::size_t>(w.period_slot)};
+    const double plo = std::max(0.0, up - hp), phi = std::min(1.0, up + hp);
+    if (w.phase_slot < 0) {
+      rep.add_window({plo}, {phi}, 1.0);
+    } else {
+      rep.slots.push_back(static_cast<std::size_t>(w.phase_slot));
+      const double centre = 0.5 * (w.tp.a + w.tp.b);
+      const double t_ref = eph.reference_epoch_bjd + eph.t_ref_days.value - model.data().reference_epoch_bjd;
+      const double cycles = (centre - t_ref) / p_hat;
+      const double s_phase = std::hypot(eph.t_ref_days.err, cycles * sp) / p_hat;
+      const double v = (t_ref - centre) / p_hat + 0.5;
+      const double uc = v - std::floor(v);
+      const double hh = std::clamp(20.0 * s_phase, 1e-12, 0.25);
+      // The phase window wraps around the cube's edge when it must: two boxes then.
+      if (uc - hh < 0.0) {
+        rep.add_window({plo, 0.0}, {phi, uc + hh}, uc + hh);
+        rep.add_window({plo, uc - hh + 1.0}, {phi, 1.0}, hh - uc);
+      } else if (uc + hh > 1.0) {
+        rep.add_window({plo, uc - hh}, {phi, 1.0}, 1.0 - (uc - hh));
+        rep.add_window({plo, 0.0}, {phi, uc + hh - 1.0}, uc + hh - 1.0);
+      } else {
+        rep.add_window({plo, uc - hh}, {phi, uc + hh}, 1.0);
+      }
+    }
+    rep.normalise();
+    rep.selector_slot = slots.size();
+    slots.push_back({SlotKind::kSelector, 0, -1});
+    repartitions.push_back(std::move(rep));
+  }
   // Mode jumps on each ordered planet's block, aimed at the hinted signals: the peak width
   // in period is about P^2 / baseline; K within half its value; the phase within 0.08
   // cycles (the signal's phase is as well known as its period at mid-baseline).
@@ -1012,7 +1134,7 @@ RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const Mo
       jump.coordinate = c_period;
       jump.small_coordinate = c_amplitude;
       jump.phase_coordinate = c_phase;
-      PeriodRepartition rep;
+      Repartition rep;
       const Prior& kp = priors.parameter[b + 1];
       const Prior& tp = priors.parameter[b + 4];
       for (const WeightedHint& wh : hints) {
@@ -1036,23 +1158,11 @@ RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const Mo
           t.phase_w = 0.08;
         }
         jump.targets.push_back(t);
-        rep.lo.push_back(std::max(0.0, t.period_u - t.period_w));
-        rep.hi.push_back(std::min(1.0, t.period_u + t.period_w));
-        rep.weight.push_back(wh.weight);
+        rep.add_window({std::max(0.0, t.period_u - t.period_w)}, {std::min(1.0, t.period_u + t.period_w)}, wh.weight);
       }
       if (!rep.lo.empty()) {
-        double total = 0.0;
-        for (double w : rep.weight) total += w;
-        double cum = 0.0;
-        for (double& w : rep.weight) {
-          w /= total;
-          cum += w;
-          rep.cum_weight.push_back(cum);
-        }
-        rep.cum_weight.back() = 1.0;
-        rep.planet = j;
-        rep.period_slot = static_cast<std::size_t>(c_period);
-        rep.theta_index = b;
+        rep.normalise();
+        rep.slots = {static_cast<std::size_t>(c_period)};
         rep.selector_slot = slots.size();
         others.push_back(static_cast<int>(slots.size()));
         slots.push_back({SlotKind::kSelector, 0, j});
@@ -1067,13 +1177,24 @@ RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const Mo
   const std::vector<Slot> sl = slots;
   const auto layout_copy = layout;
   out.problem.dimension = static_cast<int>(slots.size());
+  out.n_free_params = out.n_integrated_params;
+  for (const Slot& s : slots)
+    if (s.kind != SlotKind::kSelector) ++out.n_free_params;
+  out.problem.slice_steps_per_dimension = n_free > 1 ? 5.0 : 3.0;
   out.problem.n_params = static_cast<int>(n_total) + (repartitions.empty() ? 0 : 1);
   if (!repartitions.empty()) out.problem.log_prior_ratio_index = static_cast<int>(n_total);
   out.problem.names = all_names;
   out.problem.prior_transform = [pri, sl, fixed, layout_copy, sort_blocks, k, free_planets, extra_period_priors,
                                  extra_t_priors, n_params, repartitions,
-                                 n_total](std::span<const double> u, std::span<double> theta) {
+                                 n_total](std::span<const double> u_prior, std::span<double> theta) {
     for (std::size_t i = 0; i < n_params; ++i) theta[i] = fixed[i];
+    // Repartitioned coordinates move first (pi~); the usual transform then reads them.
+    thread_local std::vector<double> moved;
+    moved.assign(u_prior.begin(), u_prior.end());
+    double ln_ratio = 0.0;
+    for (const auto& rp : repartitions) ln_ratio += rp.apply(moved, kRepartitionAlpha);
+    if (!repartitions.empty()) theta[n_total] = ln_ratio;
+    const std::vector<double>& u = moved;
     std::size_t extra = 0;
     // Eccentricity and omega first land in (h, k) slots as (e, w), converted below.
     std::vector<double> phase_u(static_cast<std::size_t>(k), -1.0);
@@ -1095,15 +1216,6 @@ RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const Mo
           break;
         }
       }
-    }
-    if (!repartitions.empty()) {
-      double ln_ratio = 0.0;
-      for (const auto& rp : repartitions) {
-        const double y = rp.map(u[rp.period_slot], u[rp.selector_slot], kRepartitionAlpha);
-        theta[rp.theta_index] = pri.parameter[rp.theta_index].quantile(y);
-        ln_ratio += rp.ln_ratio(y, kRepartitionAlpha);
-      }
-      theta[n_total] = ln_ratio;
     }
     for (int j = 0; j < k; ++j) {
       const std::size_t b = static_cast<std::size_t>(5 * j);
@@ -1284,7 +1396,7 @@ CompareResult compare_planet_counts(const VelocityData& data, const ModelLayout&
     RvEvidenceProblem prob =
         make_rv_evidence_problem(model, priors, options.phase_conjunction, et ? &*et : nullptr, hints);
     n_points_total = data.size() + prob.n_transit_points;
-    const int n_free = prob.problem.dimension + prob.n_integrated_params;
+    const int n_free = prob.n_free_params;
     if (static_cast<std::size_t>(n_free) + 1 >= data.size())
       throw InputError(fmt::format("compare: {} planet(s) need {} free parameters but the data have only {} points",
                                    k, n_free, data.size()));

@@ -200,6 +200,26 @@ TEST_SUITE("evidence") {
     CHECK(one.selected_n_planets == 1);
     // The posterior of the one-planet model finds the simulated period.
     CHECK(one.rows[1].nested.weighted_quantile(0, 0.5) == doctest::Approx(23.4).epsilon(0.01));
+    // ln B(2 vs 1) against the Savage-Dickey density ratio (Dickey 1971; the one-planet
+    // model is the two-planet one at K = 0 of either planet, other priors independent):
+    // B(1 vs 2) = p(K_j < eps | data) / pi(K_j < eps) for one planet j. The two-planet
+    // posterior is symmetric in which planet is the "no signal" one, so p(K_j < eps) is
+    // half the posterior mass with min(K_b, K_c) < eps. A sampler that lost part of the
+    // "no signal" region would report a low ln Z (the demo's three-planet model came out
+    // 4.6 nats low before its walks were lengthened) without the posterior showing it.
+    {
+      const NestedResult& two = one.rows[2].nested;
+      const double eps = 0.2;
+      const Prior k_prior = test_priors(ModelLayout{1}).parameter[1];
+      const double prior_mass = eps * std::exp(k_prior.log_density(0.5 * eps));  // midpoint rule
+      double post_mass = 0.0;
+      for (const auto& smp : two.samples)
+        if (std::min(smp.theta[1], smp.theta[6]) < eps) post_mass += 0.5 * std::exp(smp.ln_weight);
+      REQUIRE(post_mass > 0.0);
+      const double ln_b_sd = std::log(prior_mass / post_mass);
+      CAPTURE(ln_b_sd);
+      CHECK(std::fabs(one.rows[2].ln_bayes_vs_previous - ln_b_sd) < 1.0 + 3.0 * one.rows[2].ln_bayes_err);
+    }
 
     opt.max_planets = 1;
     const CompareResult noise = compare_planet_counts(simulated({}, 22), base, test_priors, opt);

@@ -35,7 +35,7 @@ TEST_CASE("a three-line project gets the documented defaults") {
   CHECK(pr.sampler.walkers == 0);
   CHECK(pr.sampler.max_steps == 200000);
   CHECK(pr.sampler.seed == 1);
-  CHECK(pr.evidence.live_points == 400);
+  CHECK(pr.evidence.live_points == 500);
   CHECK(pr.priors.empty());
 }
 

@@ -18,7 +18,7 @@
 //   [priors]      "<param>" = { dist = "...", ... } overriding defaults (prior.h)
 //   [sampler]     walkers [0 = auto], max_steps [200000], ess_target [2000],
 //                 rhat_max [1.01], min_tau_multiple [50], seed [1], checkpoint_steps [1000]
-//   [evidence]    live_points [400], seed [1], bayes_threshold [5]
+//   [evidence]    live_points [500], seed [1], bayes_threshold [5]
 #pragma once
 
 #include <map>
@@ -89,7 +89,7 @@ struct SamplerSettings {
 };
 
 struct EvidenceSettings {
-  int live_points = 400;
+  int live_points = 500;
   unsigned long long seed = 1;
   double bayes_threshold = 5.0;
 };

@@ -85,10 +85,10 @@ Command register_compare(CLI::App& app) {
   cmd->add_option("--min-planets", args->min_planets,
                   "Smallest number of planets compared (default 0; the Bayes factor of the smallest model is not shown)")
       ->check(CLI::Range(0, 9));
-  cmd->add_option("--live-points", args->live_points, "Live points (default [evidence] live_points = 400)")
+  cmd->add_option("--live-points", args->live_points, "Live points (default [evidence] live_points = 500)")
       ->check(CLI::Range(20, 100000));
   cmd->add_option("--slice-steps", args->slice_steps,
-                  "Slice moves per new live point (default 3 x the number of free parameters)")
+                  "Slice moves per new live point (default 3 x the sampled dimensions, 5 x with two or more planets of free period)")
       ->check(CLI::Range(1, 100000));
   cmd->add_option("--jumps-per-step", args->jumps_per_step,
                   "Period-jump attempts per slice move (default 2; 0 turns the jumps off)")
