@@ -31,6 +31,30 @@ NestedProblem gaussian_in_box(int d, double a, double sigma) {
   return p;
 }
 
+// Mean and sample standard deviation of ln Z over seeds, and the mean stated error.
+struct SeedSpread {
+  double mean = 0.0, scatter = 0.0, mean_err = 0.0;
+};
+SeedSpread seed_spread(const std::vector<double>& ln_z, const std::vector<double>& err) {
+  const double n = static_cast<double>(ln_z.size());
+  SeedSpread s;
+  s.mean = std::accumulate(ln_z.begin(), ln_z.end(), 0.0) / n;
+  double var = 0.0;
+  for (double z : ln_z) var += (z - s.mean) * (z - s.mean);
+  s.scatter = std::sqrt(var / (n - 1.0));
+  s.mean_err = std::accumulate(err.begin(), err.end(), 0.0) / n;
+  return s;
+}
+
+SimPlanet sim_planet(double period_d, double k_ms, double ecc, double t_conj_bjd) {
+  SimPlanet p;
+  p.period_d = period_d;
+  p.K_ms = k_ms;
+  p.ecc = ecc;
+  p.t_conj_bjd = t_conj_bjd;
+  return p;
+}
+
 // Velocities of one simulated instrument (40 nights over 600 d, 2 m/s errors).
 VelocityData simulated(std::vector<SimPlanet> planets, unsigned long long seed) {
   Scenario sc;
@@ -116,11 +140,7 @@ TEST_SUITE("evidence") {
       ln_z.push_back(r.ln_evidence);
       err.push_back(r.ln_evidence_err);
     }
-    const double mean = std::accumulate(ln_z.begin(), ln_z.end(), 0.0) / 10.0;
-    double var = 0.0;
-    for (double z : ln_z) var += (z - mean) * (z - mean);
-    const double scatter = std::sqrt(var / 9.0);
-    const double mean_err = std::accumulate(err.begin(), err.end(), 0.0) / 10.0;
+    const auto [mean, scatter, mean_err] = seed_spread(ln_z, err);
     CAPTURE(scatter);
     CAPTURE(mean_err);
     // With 10 runs the sample standard deviation is known to about +-25 % (1 sigma);
@@ -186,11 +206,7 @@ TEST_SUITE("evidence") {
     CompareOptions opt;
     opt.nested.live_points = 150;
     opt.nested.seed = 3;
-    SimPlanet b;
-    b.period_d = 23.4;
-    b.K_ms = 8.0;
-    b.ecc = 0.1;
-    b.t_conj_bjd = 2460003.0;
+    const SimPlanet b = sim_planet(23.4, 8.0, 0.1, 2460003.0);
     opt.max_planets = 2;
     const CompareResult one = compare_planet_counts(simulated({b}, 21), base, test_priors, opt);
     CAPTURE(one.FullReport());
@@ -253,11 +269,7 @@ TEST_SUITE("evidence") {
   TEST_CASE("evidence: nested sampling's posterior agrees with the ensemble sampler's (medians within 0.2 sigma)") {
     // The same one-planet problem (data, priors, likelihood) sampled both ways; the
     // ensemble chain is the reference: its kept half after convergence.
-    SimPlanet b;
-    b.period_d = 23.4;
-    b.K_ms = 8.0;
-    b.ecc = 0.1;
-    b.t_conj_bjd = 2460003.0;
+    const SimPlanet b = sim_planet(23.4, 8.0, 0.1, 2460003.0);
     const VelocityData data = simulated({b}, 21);
     ModelLayout layout;
     layout.n_planets = 1;
@@ -320,11 +332,7 @@ TEST_SUITE("evidence") {
   TEST_CASE("evidence: the sinusoid hint recovers a circular planet's K and time of conjunction") {
     // The simulated truth (an input of the simulation) is the reference; the hint aims the
     // nested sampler's jumps, so the model's conjunction convention must hold.
-    SimPlanet b;
-    b.period_d = 23.4;
-    b.K_ms = 8.0;
-    b.ecc = 0.0;
-    b.t_conj_bjd = 2460011.3;
+    const SimPlanet b = sim_planet(23.4, 8.0, 0.0, 2460011.3);
     const VelocityData data = simulated({b}, 33);
     const SignalHint h = sinusoid_hint(data, 23.4);
     CHECK(h.semi_amplitude_m_s == doctest::Approx(8.0).epsilon(0.15));
@@ -341,11 +349,7 @@ TEST_SUITE("evidence") {
     // reference is outside the trick: the same model with the period prior restricted to a
     // window around the peak, plus ln of the prior mass of that window (the rest of the
     // prior holds no signal: its share of Z is below e^-20 here).
-    SimPlanet b;
-    b.period_d = 23.4;
-    b.K_ms = 6.0;
-    b.ecc = 0.1;
-    b.t_conj_bjd = 2460003.0;
+    const SimPlanet b = sim_planet(23.4, 6.0, 0.1, 2460003.0);
     const VelocityData data = simulated({b}, 41);
     ModelLayout layout;
     layout.n_planets = 1;
@@ -366,11 +370,7 @@ TEST_SUITE("evidence") {
       ln_z.push_back(r.ln_evidence + wide.ln_evidence_offset);
       err.push_back(r.ln_evidence_err);
     }
-    const double mean = std::accumulate(ln_z.begin(), ln_z.end(), 0.0) / 8.0;
-    double var = 0.0;
-    for (double z : ln_z) var += (z - mean) * (z - mean);
-    const double scatter = std::sqrt(var / 7.0);
-    const double mean_err = std::accumulate(err.begin(), err.end(), 0.0) / 8.0;
+    const auto [mean, scatter, mean_err] = seed_spread(ln_z, err);
 
     ModelPriors narrow_priors = test_priors(layout);
     narrow_priors.parameter[0] = Prior::log_uniform(21.0, 26.0);
