@@ -1082,14 +1082,15 @@ RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const Mo
     Repartition rep;
     rep.slots = {static_cast<std::size_t>(w.period_slot)};
     const double plo = std::max(0.0, up - hp), phi = std::min(1.0, up + hp);
-    if (w.phase_slot < 0) {
+    const double t_ref_err = eph.t_ref_days.err;
+    if (w.phase_slot < 0 || !(std::isfinite(eph.t_ref_days.value) && std::isfinite(t_ref_err) && t_ref_err > 0.0)) {
       rep.add_window({plo}, {phi}, 1.0);
     } else {
       rep.slots.push_back(static_cast<std::size_t>(w.phase_slot));
       const double centre = 0.5 * (w.tp.a + w.tp.b);
       const double t_ref = eph.reference_epoch_bjd + eph.t_ref_days.value - model.data().reference_epoch_bjd;
       const double cycles = (centre - t_ref) / p_hat;
-      const double s_phase = std::hypot(eph.t_ref_days.err, cycles * sp) / p_hat;
+      const double s_phase = std::hypot(t_ref_err, cycles * sp) / p_hat;
       const double v = (t_ref - centre) / p_hat + 0.5;
       const double uc = v - std::floor(v);
       const double hh = std::clamp(20.0 * s_phase, 1e-12, 0.25);
