@@ -98,13 +98,13 @@ std::string all_names_text(const std::vector<std::string>& names) {
   return s;
 }
 
-void check_positive_support(const Prior& p, const std::string& key, bool strictly) {
+void check_positive_support(const Prior& p, const std::string& where, bool strictly) {
   const double lo = p.lower();
   const bool ok = strictly ? lo > 0.0 : lo >= 0.0;
   if (!ok) {
     throw InputError(fmt::format(
-        "priors.{}: {} allows {} values; use a prior with min {} 0 (e.g. truncated-normal or log-uniform)",
-        key, p.describe(), strictly ? "zero or negative" : "negative", strictly ? ">" : ">="));
+        "{}: {} allows {} values; use a prior with min {} 0 (e.g. truncated-normal or log-uniform)",
+        where, p.describe(), strictly ? "zero or negative" : "negative", strictly ? ">" : ">="));
   }
 }
 
@@ -185,6 +185,8 @@ ModelPriors build_priors(const VelocityData& data, const ModelLayout& layout,
   // Period-prior upper bounds per planet, for t_conj windows tied to an overridden period.
   for (const PriorSpec& spec : overrides) {
     const std::string& key = spec.parameter;
+    // "project.toml:LINE: priors.KEY" when the entry's line is known.
+    const std::string where = (spec.origin.empty() ? "" : spec.origin + ": ") + "priors." + key;
     if (spec.eccentricity) {
       if (key == "eccentricity") {
         for (auto& e : mp.eccentricity) e = *spec.eccentricity;
@@ -193,31 +195,31 @@ ModelPriors build_priors(const VelocityData& data, const ModelLayout& layout,
       const std::string label = key.substr(0, key.size() - std::string(".eccentricity").size());
       const int j = planet_of_label(label);
       if (j < 0 || j >= allowed) {
-        throw InputError(fmt::format("priors.{}: this model has no planet '{}' (planets: {})", key, label,
+        throw InputError(fmt::format("{}: this model has no planet '{}' (planets: {})", where, label,
                                      allowed == 0 ? std::string("none") : planet_label(0) + (allowed > 1 ? ".." + planet_label(allowed - 1) : "")));
       }
       if (j < layout.n_planets) mp.eccentricity[static_cast<std::size_t>(j)] = *spec.eccentricity;
       continue;
     }
     if (const std::string msg = spec.prior.Validate(); !msg.empty())
-      throw InputError(fmt::format("priors.{}: impossible prior: {}", key, msg));
+      throw InputError(fmt::format("{}: impossible prior: {}", where, msg));
     const auto it = std::find(wide_names.begin(), wide_names.end(), key);
     if (it == wide_names.end()) {
-      throw InputError(fmt::format("priors.{}: this model has no parameter '{}' (parameters: {}; and "
+      throw InputError(fmt::format("{}: this model has no parameter '{}' (parameters: {}; and "
                                    "\"eccentricity\" or \"<planet>.eccentricity\")",
-                                   key, key, all_names_text(wide_names)));
+                                   where, key, all_names_text(wide_names)));
     }
     const int slot = planet_slot(key);
     const auto idx = static_cast<std::size_t>(it - wide_names.begin());
     const bool is_planet = idx < static_cast<std::size_t>(5 * allowed);
     if (is_planet && (slot == 2 || slot == 3)) {
-      throw InputError(fmt::format("priors.{}: set the eccentricity prior with \"{}.eccentricity\" instead", key,
+      throw InputError(fmt::format("{}: set the eccentricity prior with \"{}.eccentricity\" instead", where,
                                    key.substr(0, key.find('.'))));
     }
-    if (is_planet && slot == 0) check_positive_support(spec.prior, key, true);
-    if (is_planet && slot == 1) check_positive_support(spec.prior, key, false);
+    if (is_planet && slot == 0) check_positive_support(spec.prior, where, true);
+    if (is_planet && slot == 1) check_positive_support(spec.prior, where, false);
     if (!is_planet && (ends_with(key, ".jitter_ms") || ends_with(key, ".transit_jitter_d")))
-      check_positive_support(spec.prior, key, false);
+      check_positive_support(spec.prior, where, false);
     if (is_planet) {
       const int j = static_cast<int>(idx / 5);
       if (j >= layout.n_planets) continue;  // for a larger model of this run

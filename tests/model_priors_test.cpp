@@ -120,6 +120,15 @@ TEST_SUITE("model_priors") {
                          doctest::Contains("priors.c.period_d: this model has no parameter"), InputError);
   }
 
+  TEST_CASE("model_priors: an override's error names the project file and line of its entry") {
+    const VelocityData d = small_data();
+    PriorSpec bad = spec("b.K_ms", Prior::uniform(-5.0, 5.0));
+    bad.origin = "system.toml:17";
+    CHECK_THROWS_WITH_AS(build_priors(d, ModelLayout{1, 2, Trend::kNone, true}, {}, {}, {bad}),
+                         doctest::Contains("system.toml:17: priors.b.K_ms: uniform(-5, 5) allows negative values"),
+                         InputError);
+  }
+
   TEST_CASE("model_priors: impossible or misplaced overrides are input errors naming the key") {
     const VelocityData d = small_data();
     const ModelLayout L{1, 2, Trend::kNone, true};
