@@ -108,6 +108,8 @@ std::string options_text(const SamplerOptions& o) {
 SamplingRun sample_project(const Project& project, const SamplingRunOptions& args) {
   SamplingRun run;
   const VelocityData data = project.load_velocities();
+  if (args.on_warning)
+    for (const auto& w : data.warnings) args.on_warning(w);
   const TransitData transits = project.load_transits();
   const SearchProblem sp = search_problem(project, data, transits);
 

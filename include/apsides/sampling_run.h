@@ -36,6 +36,9 @@ struct SamplingRunOptions {
   // Progress (called from the sampling thread) and a stop request (checkpoints first).
   std::function<void(long step, long max_steps, const std::string& status)> progress;
   std::function<bool()> should_stop;
+  // Called with each warning about the data (e.g. a velocity unit that looks wrong) as
+  // soon as they are loaded, before the long run.
+  std::function<void(const std::string& warning)> on_warning;
 };
 
 struct SamplingRun {

@@ -102,6 +102,7 @@ Command register_compare(CLI::App& app) {
   return {cmd, [args]() -> int {
             const Project project = load_project(args->project);
             const VelocityData data = project.load_velocities();
+            print_warnings(data);
             const TransitData transits = project.transits.empty() ? TransitData{} : project.load_transits();
             CompareOptions opt;
             opt.max_planets = args->max_planets >= 0 ? args->max_planets : project.search.max_planets;

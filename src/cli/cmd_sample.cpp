@@ -60,6 +60,7 @@ Command register_sample(CLI::App& app) {
               (*bar)->update(static_cast<double>(step), status);
             };
             o.should_stop = [] { return g_interrupted != 0; };
+            o.on_warning = [](const std::string& w) { fmt::print(stderr, "apsides: warning: {}\n", w); };
             g_interrupted = 0;
             auto previous = std::signal(SIGINT, on_sigint);
             const SamplingRun run = sample_project(project, o);

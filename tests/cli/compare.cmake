@@ -18,3 +18,9 @@ file(WRITE ${CMAKE_CURRENT_BINARY_DIR}/cli_compare_bad_prior.toml
 add_test(NAME cli_compare_prior_for_missing_planet COMMAND ${CMAKE_COMMAND}
          -DCMD=$<TARGET_FILE:apsides> -DARGS=compare|${CMAKE_CURRENT_BINARY_DIR}/cli_compare_bad_prior.toml|--max-planets|1
          -DEXPECT=2 -DMATCH=d.period_d -DONE_LINE=1 -P ${PROJECT_SOURCE_DIR}/tests/cli/expect_exit.cmake)
+# A unit that looks wrong (m/s values declared km/s) is warned about before the long run.
+file(WRITE ${CMAKE_CURRENT_BINARY_DIR}/cli_compare_unit.toml
+     "[[velocities]]\nfile = \"${PROJECT_SOURCE_DIR}/datasets_synthetic/demo/velocities_Kestrel.csv\"\nvelocity_unit = \"km/s\"\n")
+add_test(NAME cli_compare_warns_of_unit COMMAND $<TARGET_FILE:apsides> compare
+         ${CMAKE_CURRENT_BINARY_DIR}/cli_compare_unit.toml --max-planets 0 --live-points 20 --quiet)
+set_tests_properties(cli_compare_warns_of_unit PROPERTIES PASS_REGULAR_EXPRESSION "these look like m/s" TIMEOUT 120)
