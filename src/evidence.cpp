@@ -143,13 +143,29 @@ double unit_mass(double c, double w) {
   const double r = 1.0 / (w * std::sqrt(2.0));
   return std::max(0.5 * (std::erf((1.0 - c) * r) - std::erf(-c * r)), 1e-300);
 }
-double truncated_draw(double c, double w, std::mt19937_64& rng) {
-  std::normal_distribution<double> gauss(c, w);
-  for (int tries = 0; tries < 1000; ++tries) {
-    const double u = gauss(rng);
-    if (u >= 0.0 && u < 1.0) return u;
+// A draw from normal(mean, sd) truncated to [lo, hi], by the inverse CDF, worked from the
+// tail the interval sits in so that far-out intervals keep their digits.
+double truncated_normal_draw(double mean, double sd, double lo, double hi, std::mt19937_64& rng) {
+  const double u = std::uniform_real_distribution<double>(0.0, 1.0)(rng);
+  const boost::math::normal unit;
+  const double za = (lo - mean) / sd, zb = (hi - mean) / sd;
+  double z;
+  if (za >= 0.0) {  // upper tail: Q(z) = 1 - Phi(z)
+    const double qa = boost::math::cdf(boost::math::complement(unit, za));
+    const double qb = boost::math::cdf(boost::math::complement(unit, zb));
+    const double q = qa - u * (qa - qb);
+    z = q > 0.0 && q < 1.0 ? boost::math::quantile(boost::math::complement(unit, q)) : za;
+  } else {
+    const double pa = boost::math::cdf(unit, za), pb = boost::math::cdf(unit, std::min(zb, 38.0));
+    const double pr = pa + u * (pb - pa);
+    z = pr > 0.0 && pr < 1.0 ? boost::math::quantile(unit, pr) : zb;
   }
-  return std::clamp(c, 0.0, std::nextafter(1.0, 0.0));  // a centre far outside: never in practice
+  return std::clamp(mean + sd * std::clamp(z, za, zb), lo, hi);
+}
+
+// Normal(c, w) truncated to the cube's [0, 1).
+double truncated_draw(double c, double w, std::mt19937_64& rng) {
+  return truncated_normal_draw(c, w, 0.0, std::nextafter(1.0, 0.0), rng);
 }
 
 // A jump with what its proposal density needs precomputed (per run): the block's
@@ -825,26 +841,6 @@ struct Slot {
 }  // namespace
 
 namespace {
-// A draw from normal(mean, sd) truncated to [lo, hi], by the inverse CDF, worked from the
-// tail the interval sits in so that far-out intervals keep their digits.
-double truncated_normal_draw(double mean, double sd, double lo, double hi, std::mt19937_64& rng) {
-  const double u = std::uniform_real_distribution<double>(0.0, 1.0)(rng);
-  const boost::math::normal unit;
-  const double za = (lo - mean) / sd, zb = (hi - mean) / sd;
-  double z;
-  if (za >= 0.0) {  // upper tail: Q(z) = 1 - Phi(z)
-    const double qa = boost::math::cdf(boost::math::complement(unit, za));
-    const double qb = boost::math::cdf(boost::math::complement(unit, zb));
-    const double q = qa - u * (qa - qb);
-    z = q > 0.0 && q < 1.0 ? boost::math::quantile(boost::math::complement(unit, q)) : za;
-  } else {
-    const double pa = boost::math::cdf(unit, za), pb = boost::math::cdf(unit, std::min(zb, 38.0));
-    const double pr = pa + u * (pb - pa);
-    z = pr > 0.0 && pr < 1.0 ? boost::math::quantile(unit, pr) : zb;
-  }
-  return std::clamp(mean + sd * std::clamp(z, za, zb), lo, hi);
-}
-
 // The prior's CDF at x, by bisection on its quantile (priors here are continuous and
 // strictly increasing on their support).
 double prior_cdf(const Prior& p, double x) {
