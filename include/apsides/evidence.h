@@ -100,7 +100,7 @@ struct NestedProblem {
   // leaves (the best values give the profile likelihood, which max ln L reports).
   std::function<double(std::span<double> theta, std::mt19937_64* rng)> complete_point;
 
-  // Optional posterior repartitioning (Chen, Feroz & Hobson 2019, arXiv:1908.04655): when
+  // Optional posterior repartitioning (Chen, Feroz & Hobson 2019, Statistics and Computing, doi:10.1007/s11222-018-9841-3): when
   // >= 0, the prior transform draws from a modified prior pi~ and writes ln(pi~ / pi) at
   // the point into theta[log_prior_ratio_index]; the sampler then works with
   // ln L - ln(pi~ / pi), so L pi is unchanged and so are Z and the posterior. Samples
