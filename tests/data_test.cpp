@@ -1,6 +1,6 @@
 // Reading velocity and transit-time files: delimiters, headers, instrument labels, units,
 // full-precision times, several files, and the three real published files read as they
-// are (from ../shared/data/real/, never copied into the repository). Counts, sums and
+// are (copied into tests/data/real/, sources in its README). Counts, sums and
 // exact reduced times are checked against an independent reader: numpy / Python's
 // decimal module through /usr/bin/python3.
 #include <doctest/doctest.h>
@@ -131,7 +131,7 @@ TEST_CASE("extra numeric columns of a velocity file are skipped and listed") {
 }
 
 TEST_CASE("51 Peg (Birkby et al. 2017): 639 rows, six instruments, counts and sums as numpy reads them") {
-  const std::string p = t::shared_data("51peg_rv_birkby2017.txt");
+  const std::string p = t::real_data("51peg_rv_birkby2017.txt");
   const auto v = apsides::load_velocities({p}, {{}});
   CHECK(v.size() == 639);
   CHECK(v.n_instruments() == 6);
@@ -156,14 +156,14 @@ TEST_CASE("51 Peg (Birkby et al. 2017): 639 rows, six instruments, counts and su
   CHECK(v.time_days.front() + v.reference_epoch_bjd == doctest::Approx(ref["tmin"].get<double>()).epsilon(1e-15));
   CHECK(v.baseline_days() == doctest::Approx(ref["tmax"].get<double>() - ref["tmin"].get<double>()).epsilon(1e-12));
   // ELODIE gives absolute velocities: its systemic velocity is about -33 km/s (README of
-  // the shared data); the other instruments' zero points are their own.
+  // tests/data/real/README.md); the other instruments' zero points are their own.
   const auto elodie = v.subset(static_cast<int>(std::find(v.instrument_names.begin(), v.instrument_names.end(), "ELODIE") -
                                                 v.instrument_names.begin()));
   CHECK(elodie.velocity_m_s.front() == doctest::Approx(-33258.0));
 }
 
 TEST_CASE("HD 20868 (Moutou et al. 2009): 48 rows under a header, km/s when declared") {
-  const std::string p = t::shared_data("hd20868_rv_moutou2009.txt");
+  const std::string p = t::real_data("hd20868_rv_moutou2009.txt");
   const auto kms = apsides::load_velocities({p}, {{"HARPS", VelocityUnit::kKilometersPerSecond}});
   CHECK(kms.size() == 48);
   CHECK(kms.warnings.empty());
@@ -185,7 +185,7 @@ TEST_CASE("HD 20868 (Moutou et al. 2009): 48 rows under a header, km/s when decl
 }
 
 TEST_CASE("WASP-12b transit times (Wong et al. 2022): CRLF, a header and an O-C column that is skipped") {
-  const std::string p = t::shared_data("wasp12b_transits_wong2022.txt");
+  const std::string p = t::real_data("wasp12b_transits_wong2022.txt");
   const auto tt = apsides::read_transit_file(p);
   CHECK(tt.ignored_columns == std::vector<std::string>{"O-C"});
   const auto ref = python_json(

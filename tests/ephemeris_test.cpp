@@ -278,7 +278,7 @@ TEST_CASE("ephemeris: prediction uncertainties match a Monte Carlo of refits") {
 TEST_CASE("ephemeris: the WASP-12b times of Wong et al. 2022 show the published orbital decay") {
   // Wong et al. 2022, AJ 163, 175, eq. (8c): dP/dE = (-1.031 +/- 0.033) x 1e-9 d/orbit.
   // The file is read as published: CRLF line ends, comment block, header, O-C column.
-  const TransitData data = read_transit_file(test::shared_data("wasp12b_transits_wong2022.txt"));
+  const TransitData data = read_transit_file(test::real_data("wasp12b_transits_wong2022.txt"));
   REQUIRE(data.size() > 100);
   CHECK(data.ignored_columns.size() == 1);
   const auto r = fit_ephemeris(data);

@@ -142,7 +142,7 @@ offset_ms = 30.0
 
   TEST_CASE("fit: HD 20868 (km/s, header row) gives P = 380.85 d and e = 0.75 as published") {
     // Moutou et al. 2009, A&A 496, 513: P = 380.85 +- 0.09 d, e = 0.75 +- 0.002 (errors x 3).
-    const VelocityData d = load_velocities({test::shared_data("hd20868_rv_moutou2009.txt")},
+    const VelocityData d = load_velocities({test::real_data("hd20868_rv_moutou2009.txt")},
                                            {VelocityFileOptions{"HARPS", VelocityUnit::kKilometersPerSecond}});
     const SearchResult sr = search_planets(problem_of(d), SearchOptions{});
     MESSAGE(sr.FullReport());
@@ -156,7 +156,7 @@ offset_ms = 30.0
   TEST_CASE("fit: 51 Peg from six instruments gives the published period, K and a circular orbit") {
     // Marcy et al. 1997, ApJ 481, 926: P = 4.231 d, K = 56 +- 1 m/s, e < 0.01 (K to 3 sigma);
     // long-baseline P = 4.2308 d [M].
-    const VelocityData d = load_velocities({test::shared_data("51peg_rv_birkby2017.txt")}, {VelocityFileOptions{}});
+    const VelocityData d = load_velocities({test::real_data("51peg_rv_birkby2017.txt")}, {VelocityFileOptions{}});
     REQUIRE(d.n_instruments() == 6u);
     SearchProblem sp = problem_of(d);
     const FitResult f = fit_map(make_fit_problem(sp, 1), FitOptions{});

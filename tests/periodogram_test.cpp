@@ -221,8 +221,8 @@ TEST_CASE("periodogram: a sub-day period under nightly sampling is found and its
 
 TEST_CASE("periodogram: 51 Peg (six instruments, -33 km/s) peaks at the published 4.2308 d") {
   // Data: Birkby et al. 2017 (CDS J/AJ/153/138); period: 4.2308 d long-baseline value
-  // quoted in ../shared/data/real/README.md (4.231 d, Marcy et al. 1997).
-  const auto data = load_velocities({test::shared_data("51peg_rv_birkby2017.txt")}, {VelocityFileOptions{}});
+  // quoted in tests/data/real/README.md (4.231 d, Marcy et al. 1997).
+  const auto data = load_velocities({test::real_data("51peg_rv_birkby2017.txt")}, {VelocityFileOptions{}});
   REQUIRE(data.n_instruments() == 6);
   PeriodogramOptions opt;
   const auto r = compute_periodogram(data, opt);
@@ -236,7 +236,7 @@ TEST_CASE("periodogram: the fast mode stays within 1e-5 of the exact sums on six
   // The exact engine is itself checked against astropy above; this exercises the fast
   // engine's per-instrument sums and its largest grids on real sampling (51 Peg), where
   // the offsets make the power most sensitive to errors in the sums.
-  const auto data = load_velocities({test::shared_data("51peg_rv_birkby2017.txt")}, {VelocityFileOptions{}});
+  const auto data = load_velocities({test::real_data("51peg_rv_birkby2017.txt")}, {VelocityFileOptions{}});
   PeriodogramOptions opt;
   opt.n_window_peaks = 1;
   opt.method = PeriodogramMethod::kExact;

@@ -14,8 +14,8 @@ namespace fs = std::filesystem;
 std::string source_dir() { return APSIDES_SOURCE_DIR; }
 std::string apsides_binary() { return APSIDES_BINARY; }
 
-std::string shared_data(const std::string& name) {
-  return (fs::path(source_dir()) / ".." / "shared" / "data" / "real" / name).lexically_normal().string();
+std::string real_data(const std::string& name) {
+  return (fs::path(source_dir()) / "tests" / "data" / "real" / name).lexically_normal().string();
 }
 
 std::string temp_dir(const std::string& name) {

@@ -20,7 +20,7 @@ CommandResult run_command(const std::string& command, bool merge_stderr = true);
 CommandResult run_python(const std::string& code);
 // Paths.
 std::string source_dir();
-std::string shared_data(const std::string& name);  // ../shared/data/real/<name>
+std::string real_data(const std::string& name);  // tests/data/real/<name> (in the repository)
 std::string apsides_binary();
 
 }  // namespace apsides::test

@@ -1,6 +1,6 @@
 # apsides ephemeris: what users see (exit codes and messages).
 set(_eph_demo ${PROJECT_SOURCE_DIR}/datasets_synthetic/demo/transits.csv)
-set(_eph_wasp ${PROJECT_SOURCE_DIR}/../shared/data/real/wasp12b_transits_wong2022.txt)
+set(_eph_wasp ${PROJECT_SOURCE_DIR}/tests/data/real/wasp12b_transits_wong2022.txt)
 set(_eph_tmp ${CMAKE_CURRENT_BINARY_DIR}/tmp/cli_ephemeris)
 file(MAKE_DIRECTORY ${_eph_tmp})
 

@@ -5,7 +5,7 @@ add_test(NAME cli_fit_demo_search COMMAND $<TARGET_FILE:apsides> fit
 set_tests_properties(cli_fit_demo_search PROPERTIES
   PASS_REGULAR_EXPRESSION "b +6\\.41[0-9]+ [^\n]*\nc +118\\.[0-9]+")
 add_test(NAME cli_fit_one_planet_km_s COMMAND $<TARGET_FILE:apsides> fit
-         ${PROJECT_SOURCE_DIR}/../shared/data/real/hd20868_rv_moutou2009.txt --velocity-unit km/s
+         ${PROJECT_SOURCE_DIR}/tests/data/real/hd20868_rv_moutou2009.txt --velocity-unit km/s
          --planets 1 --star-mass 0.78)
 set_tests_properties(cli_fit_one_planet_km_s PROPERTIES PASS_REGULAR_EXPRESSION "b +380\\.[89]")
 file(WRITE ${CMAKE_CURRENT_BINARY_DIR}/cli_fit_bad_prior.toml

@@ -5,7 +5,7 @@ add_test(NAME cli_scan_demo_project COMMAND $<TARGET_FILE:apsides> scan
 set_tests_properties(cli_scan_demo_project PROPERTIES
   PASS_REGULAR_EXPRESSION "\n +1 +(6\\.41|118\\.[0-9]|11[0-9]\\.[0-9]|12[0-9]\\.[0-9])[0-9]* +[0-9.]+ +[0-9.]+ +[0-9.e-]+")
 add_test(NAME cli_scan_51peg COMMAND $<TARGET_FILE:apsides> scan
-         ${PROJECT_SOURCE_DIR}/../shared/data/real/51peg_rv_birkby2017.txt --peaks 5)
+         ${PROJECT_SOURCE_DIR}/tests/data/real/51peg_rv_birkby2017.txt --peaks 5)
 set_tests_properties(cli_scan_51peg PROPERTIES PASS_REGULAR_EXPRESSION "\n +1 +4\\.230[0-9]+ ")
 add_test(NAME cli_scan_bootstrap COMMAND $<TARGET_FILE:apsides> scan
          ${PROJECT_SOURCE_DIR}/datasets_synthetic/demo/velocities_Kestrel.csv --bootstrap 20 --seed 3 --peaks 3
