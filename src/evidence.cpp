@@ -23,6 +23,7 @@
 #include "apsides/ephemeris.h"
 #include "apsides/periodogram.h"
 #include "apsides/error.h"
+#include "evidence_internal.h"
 
 namespace apsides {
 namespace {
@@ -35,14 +36,6 @@ double log_add_exp(double a, double b) {
   return m + std::log1p(std::exp(-std::fabs(a - b)));
 }
 
-// An independent random stream per (seed, stream id): the same numbers whichever thread
-// draws them, which is what makes the run independent of the thread count.
-std::mt19937_64 make_stream(std::uint64_t seed, std::uint64_t stream) {
-  std::seed_seq seq{static_cast<std::uint32_t>(seed), static_cast<std::uint32_t>(seed >> 32),
-                    static_cast<std::uint32_t>(stream), static_cast<std::uint32_t>(stream >> 32),
-                    0x6e657374u};
-  return std::mt19937_64(seq);
-}
 
 // A small persistent pool: run(count, fn) calls fn(0..count-1) on the workers and the
 // calling thread and returns when all are done. Task i never depends on which thread
@@ -143,8 +136,15 @@ double unit_mass(double c, double w) {
   const double r = 1.0 / (w * std::sqrt(2.0));
   return std::max(0.5 * (std::erf((1.0 - c) * r) - std::erf(-c * r)), 1e-300);
 }
-// A draw from normal(mean, sd) truncated to [lo, hi], by the inverse CDF, worked from the
-// tail the interval sits in so that far-out intervals keep their digits.
+}  // namespace
+
+std::mt19937_64 make_stream(std::uint64_t seed, std::uint64_t stream) {
+  std::seed_seq seq{static_cast<std::uint32_t>(seed), static_cast<std::uint32_t>(seed >> 32),
+                    static_cast<std::uint32_t>(stream), static_cast<std::uint32_t>(stream >> 32),
+                    0x6e657374u};
+  return std::mt19937_64(seq);
+}
+
 double truncated_normal_draw(double mean, double sd, double lo, double hi, std::mt19937_64& rng) {
   const double u = std::uniform_real_distribution<double>(0.0, 1.0)(rng);
   const boost::math::normal unit;
@@ -162,6 +162,8 @@ double truncated_normal_draw(double mean, double sd, double lo, double hi, std::
   }
   return std::clamp(mean + sd * std::clamp(z, za, zb), lo, hi);
 }
+
+namespace {
 
 // Normal(c, w) truncated to the cube's [0, 1).
 double truncated_draw(double c, double w, std::mt19937_64& rng) {
@@ -492,69 +494,56 @@ std::string NestedOptions::Validate() const {
   return "";
 }
 
-NestedResult run_nested_sampling(const NestedProblem& problem, const NestedOptions& options) {
-  if (const std::string v = options.Validate(); !v.empty()) throw InputError("nested sampling: " + v);
-  if (problem.dimension < 1) throw InputError("nested sampling: the problem has no free parameter");
-  if (options.live_points < problem.dimension + 1)
-    throw InputError(fmt::format("live_points = {}: must be >= dimension + 1 = {}", options.live_points,
-                                 problem.dimension + 1));
-  const auto t_start = std::chrono::steady_clock::now();
-  const int d = problem.dimension;
-  const int p = problem.n_params > 0 ? problem.n_params : d;
-  const int n = options.live_points;
-  const int batch = options.batch_size;
-  const int steps = options.slice_steps > 0
-                        ? options.slice_steps
-                        : std::max(1, static_cast<int>(std::lround(problem.slice_steps_per_dimension * d)));
-  const int n_threads = options.threads > 0 ? options.threads
-                                            : std::max(1, static_cast<int>(std::thread::hardware_concurrency()));
-  Workers workers(n_threads);
-  const Evaluator eval{problem, p};
+namespace {
 
+// The state of one run, and its steps (run_nested_sampling strings them together).
+struct NestedRun {
+  const NestedProblem& problem;
+  const NestedOptions& options;
+  int d = 0, p = 0, n = 0, batch = 0, steps = 0;
+  Workers workers;
+  Evaluator eval;
+  std::vector<LivePoint> live;
+  std::vector<PreparedJump> prepared;
+  LiveKernels kernels;
+  double ln_x = 0.0, ln_z = -kInf;
+  long calls = 0;
+  std::uint64_t replacement_stream = 0;
   NestedResult res;
-  res.names = problem.names;
-  res.live_points = n;
 
-  // Initial live points: uniform in the cube (one stream per point).
-  std::vector<LivePoint> live(static_cast<std::size_t>(n));
-  workers.run(n, [&](int i) {
-    auto rng = make_stream(options.seed, static_cast<std::uint64_t>(i));
-    std::uniform_real_distribution<double> unif(0.0, 1.0);
-    LivePoint& lp = live[static_cast<std::size_t>(i)];
-    lp.u.resize(static_cast<std::size_t>(d));
-    lp.theta.resize(static_cast<std::size_t>(p));
-    for (double& x : lp.u) x = unif(rng);
-    lp.ln_like = eval(lp.u, lp.theta);
-  });
-  long calls = n;
-  if (std::none_of(live.begin(), live.end(), [](const LivePoint& l) { return std::isfinite(l.ln_like); })) {
-    res.termination = NestedTermination::kBadLikelihood;
-    res.message = "No initial live point has a finite likelihood: check the priors and the data.";
-    return res;
+  NestedRun(const NestedProblem& pr, const NestedOptions& o)
+      : problem(pr), options(o), d(pr.dimension), p(pr.n_params > 0 ? pr.n_params : pr.dimension),
+        n(o.live_points), batch(o.batch_size),
+        steps(o.slice_steps > 0 ? o.slice_steps
+                                : std::max(1, static_cast<int>(std::lround(pr.slice_steps_per_dimension * d)))),
+        workers(o.threads > 0 ? o.threads : std::max(1, static_cast<int>(std::thread::hardware_concurrency()))),
+        eval{pr, p} {
+    res.names = pr.names;
+    res.live_points = n;
+    for (const auto& j : pr.jumps) prepared.push_back(prepare_jump(j));
   }
 
-  double ln_x = 0.0, ln_z = -kInf;
-  std::uint64_t replacement_stream = static_cast<std::uint64_t>(n);
-  std::vector<int> order(static_cast<std::size_t>(n));
-  std::vector<int> removed(static_cast<std::size_t>(batch));
-  std::vector<WalkOutcome> outcomes(static_cast<std::size_t>(batch));
-  res.termination = NestedTermination::kConverged;
-  LiveKernels kernels;
-  constexpr long kKernelRefresh = 20;
-  std::vector<PreparedJump> prepared;
-  for (const auto& j : problem.jumps) prepared.push_back(prepare_jump(j));
-  for (long it = 0;; ++it) {
-    double ln_like_max = -kInf;
-    for (const auto& l : live) ln_like_max = std::max(ln_like_max, l.ln_like);
-    const double ln_remaining = ln_like_max + ln_x;
-    if (ln_z > -kInf && log_add_exp(ln_z, ln_remaining) - ln_z < options.ln_z_tolerance) break;
-    if (options.max_iterations > 0 && it >= options.max_iterations) {
-      res.termination = NestedTermination::kMaxIterations;
-      break;
-    }
-    if (options.progress && it % 50 == 0) options.progress(it, ln_z, ln_remaining);
+  // Initial live points: uniform in the cube (one stream per point). False when none has
+  // a finite likelihood.
+  bool start() {
+    live.assign(static_cast<std::size_t>(n), LivePoint{});
+    workers.run(n, [&](int i) {
+      auto rng = make_stream(options.seed, static_cast<std::uint64_t>(i));
+      std::uniform_real_distribution<double> unif(0.0, 1.0);
+      LivePoint& lp = live[static_cast<std::size_t>(i)];
+      lp.u.resize(static_cast<std::size_t>(d));
+      lp.theta.resize(static_cast<std::size_t>(p));
+      for (double& x : lp.u) x = unif(rng);
+      lp.ln_like = eval(lp.u, lp.theta);
+    });
+    calls = n;
+    replacement_stream = static_cast<std::uint64_t>(n);
+    return std::any_of(live.begin(), live.end(), [](const LivePoint& l) { return std::isfinite(l.ln_like); });
+  }
 
-    // Remove the `batch` lowest points (ties broken by index, for determinism).
+  // Removes the `batch` lowest points (ties broken by index, for determinism) into the
+  // dead points; `order` is left sorted with the removed ones first.
+  void remove_lowest(std::vector<int>& order, std::vector<int>& removed) {
     std::iota(order.begin(), order.end(), 0);
     std::partial_sort(order.begin(), order.begin() + batch, order.end(), [&](int a, int b) {
       const double la = live[static_cast<std::size_t>(a)].ln_like, lb = live[static_cast<std::size_t>(b)].ln_like;
@@ -570,20 +559,10 @@ NestedResult run_nested_sampling(const NestedProblem& problem, const NestedOptio
       ln_x = ln_x_new;
       removed[static_cast<std::size_t>(j)] = order[static_cast<std::size_t>(j)];
     }
-    const double ln_like_star = live[static_cast<std::size_t>(removed.back())].ln_like;
+  }
 
-    // Survivors strictly inside the constraint are the walk starts; their covariance
-    // (in the cube) sets the slice directions.
-    std::vector<int> starts;
-    for (int i = batch; i < n; ++i)
-      if (live[static_cast<std::size_t>(order[static_cast<std::size_t>(i)])].ln_like > ln_like_star)
-        starts.push_back(order[static_cast<std::size_t>(i)]);
-    std::sort(starts.begin(), starts.end());
-    if (starts.empty()) {
-      res.termination = NestedTermination::kSliceFailed;
-      res.message = "Every live point sits on the likelihood constraint (a likelihood plateau).";
-      break;
-    }
+  // The survivors' covariance in the cube, factored: the slice directions.
+  Eigen::MatrixXd slice_directions(const std::vector<int>& order) const {
     Eigen::MatrixXd pts(static_cast<Eigen::Index>(n - batch), d);
     for (int i = batch; i < n; ++i)
       for (int k = 0; k < d; ++k)
@@ -593,36 +572,57 @@ NestedResult run_nested_sampling(const NestedProblem& problem, const NestedOptio
     Eigen::MatrixXd cov = centred.transpose() * centred / std::max(1.0, static_cast<double>(n - batch - 1));
     cov.diagonal().array() += 1e-12;
     Eigen::LLT<Eigen::MatrixXd> llt(cov);
-    Eigen::MatrixXd chol = llt.info() == Eigen::Success
-                               ? Eigen::MatrixXd(llt.matrixL())
-                               : Eigen::MatrixXd(cov.diagonal().cwiseSqrt().asDiagonal());
+    return llt.info() == Eigen::Success ? Eigen::MatrixXd(llt.matrixL())
+                                        : Eigen::MatrixXd(cov.diagonal().cwiseSqrt().asDiagonal());
+  }
 
-    // Each jump's "no signal" amplitude range: the lower quartile of the live points'
-    // amplitude coordinates over every jump block (at least 1e-6).
+  // Each jump's "no signal" amplitude range: the lower quartile of the live points'
+  // amplitude coordinates over every jump block (at least 1e-6).
+  std::vector<double> jump_kappas(const std::vector<int>& order) const {
     std::vector<double> kappas(problem.jumps.size(), 1.0);
-    if (!problem.jumps.empty()) {
-      std::vector<double> amps;
-      for (int i = batch; i < n; ++i)
-        for (const auto& jp : problem.jumps)
-          if (jp.small_coordinate >= 0)
-            amps.push_back(live[static_cast<std::size_t>(order[static_cast<std::size_t>(i)])]
-                               .u[static_cast<std::size_t>(jp.small_coordinate)]);
-      if (!amps.empty()) {
-        const auto q = amps.begin() + static_cast<std::ptrdiff_t>(amps.size() / 4);
-        std::nth_element(amps.begin(), q, amps.end());
-        std::fill(kappas.begin(), kappas.end(), std::clamp(*q, 1e-6, 1.0));
-      }
+    if (problem.jumps.empty()) return kappas;
+    std::vector<double> amps;
+    for (int i = batch; i < n; ++i)
+      for (const auto& jp : problem.jumps)
+        if (jp.small_coordinate >= 0)
+          amps.push_back(live[static_cast<std::size_t>(order[static_cast<std::size_t>(i)])]
+                             .u[static_cast<std::size_t>(jp.small_coordinate)]);
+    if (!amps.empty()) {
+      const auto q = amps.begin() + static_cast<std::ptrdiff_t>(amps.size() / 4);
+      std::nth_element(amps.begin(), q, amps.end());
+      std::fill(kappas.begin(), kappas.end(), std::clamp(*q, 1e-6, 1.0));
     }
+    return kappas;
+  }
+
+  // One iteration: remove the lowest points and refill them by slice walks from the
+  // survivors strictly inside the constraint. False when the run must stop.
+  bool iterate(long it, std::vector<int>& order, std::vector<int>& removed, std::vector<WalkOutcome>& outcomes) {
+    remove_lowest(order, removed);
+    const double ln_like_star = live[static_cast<std::size_t>(removed.back())].ln_like;
+    std::vector<int> starts;
+    for (int i = batch; i < n; ++i)
+      if (live[static_cast<std::size_t>(order[static_cast<std::size_t>(i)])].ln_like > ln_like_star)
+        starts.push_back(order[static_cast<std::size_t>(i)]);
+    std::sort(starts.begin(), starts.end());
+    if (starts.empty()) {
+      res.termination = NestedTermination::kSliceFailed;
+      res.message = "Every live point sits on the likelihood constraint (a likelihood plateau).";
+      return false;
+    }
+    const Eigen::MatrixXd chol = slice_directions(order);
+    const std::vector<double> kappas = jump_kappas(order);
     // The live points' kernel density for the jumps, refreshed every few iterations.
+    constexpr long kKernelRefresh = 20;
     if (!prepared.empty() && it % kKernelRefresh == 0) kernels.build(live, prepared);
     const std::uint64_t first_stream = replacement_stream;
     replacement_stream += static_cast<std::uint64_t>(batch);
     workers.run(batch, [&](int j) {
       auto rng = make_stream(options.seed, first_stream + static_cast<std::uint64_t>(j));
       std::uniform_int_distribution<std::size_t> pick(0, starts.size() - 1);
-      const LivePoint& start = live[static_cast<std::size_t>(starts[pick(rng)])];
+      const LivePoint& from = live[static_cast<std::size_t>(starts[pick(rng)])];
       outcomes[static_cast<std::size_t>(j)] =
-          slice_walk(eval, start, ln_like_star, chol, steps, rng, prepared, kappas, kernels, options.jumps_per_step);
+          slice_walk(eval, from, ln_like_star, chol, steps, rng, prepared, kappas, kernels, options.jumps_per_step);
     });
     bool failed = false;
     for (int j = 0; j < batch; ++j) {
@@ -635,44 +635,51 @@ NestedResult run_nested_sampling(const NestedProblem& problem, const NestedOptio
     if (failed) {
       res.termination = NestedTermination::kSliceFailed;
       res.message = "A slice-sampling walk found no point inside the likelihood constraint.";
-      break;
+      return false;
     }
+    return true;
   }
 
-  // The final live points share the remaining volume equally.
-  std::sort(live.begin(), live.end(), [](const LivePoint& a, const LivePoint& b) { return a.ln_like < b.ln_like; });
-  for (const auto& l : live) {
-    const double ln_w = l.ln_like + ln_x - std::log(static_cast<double>(n));
-    ln_z = log_add_exp(ln_z, ln_w);
-    res.samples.push_back({l.theta, l.ln_like, ln_x, ln_w});
-  }
-  // Normalise the weights, and H = sum p ln L - ln Z.
-  double h = 0.0;
-  for (auto& s : res.samples) {
-    s.ln_weight -= ln_z;
-    if (std::isfinite(s.ln_like) && s.ln_weight > -kInf) h += std::exp(s.ln_weight) * s.ln_like;
-    if (s.ln_like > res.ln_like_max) {
-      res.ln_like_max = s.ln_like;
-      res.theta_max_like = s.theta;
+  // The final live points share the remaining volume equally; weights normalised;
+  // H = sum p ln L - ln Z; the sampler's own entries removed from theta.
+  void close() {
+    std::sort(live.begin(), live.end(), [](const LivePoint& a, const LivePoint& b) { return a.ln_like < b.ln_like; });
+    for (const auto& l : live) {
+      const double ln_w = l.ln_like + ln_x - std::log(static_cast<double>(n));
+      ln_z = log_add_exp(ln_z, ln_w);
+      res.samples.push_back({l.theta, l.ln_like, ln_x, ln_w});
     }
-  }
-  h -= ln_z;
-  if (problem.log_prior_ratio_index >= 0) {
-    // Report the likelihood itself, and theta without the sampler's own entries.
-    const std::size_t idx = static_cast<std::size_t>(problem.log_prior_ratio_index);
-    res.ln_like_max = -kInf;
-    for (auto& smp : res.samples) {
-      smp.ln_like += smp.theta[idx];
-      smp.theta.resize(idx);
-      if (smp.ln_like > res.ln_like_max) {
-        res.ln_like_max = smp.ln_like;
-        res.theta_max_like = smp.theta;
+    double h = 0.0;
+    for (auto& s : res.samples) {
+      s.ln_weight -= ln_z;
+      if (std::isfinite(s.ln_like) && s.ln_weight > -kInf) h += std::exp(s.ln_weight) * s.ln_like;
+      if (s.ln_like > res.ln_like_max) {
+        res.ln_like_max = s.ln_like;
+        res.theta_max_like = s.theta;
       }
     }
+    h -= ln_z;
+    if (problem.log_prior_ratio_index >= 0) {
+      // Report the likelihood itself, and theta without the sampler's own entries.
+      const std::size_t idx = static_cast<std::size_t>(problem.log_prior_ratio_index);
+      res.ln_like_max = -kInf;
+      for (auto& smp : res.samples) {
+        smp.ln_like += smp.theta[idx];
+        smp.theta.resize(idx);
+        if (smp.ln_like > res.ln_like_max) {
+          res.ln_like_max = smp.ln_like;
+          res.theta_max_like = smp.theta;
+        }
+      }
+    }
+    res.ln_evidence = ln_z;
+    res.information_nats = std::max(0.0, h);
+    res.ln_evidence_err = std::sqrt(res.information_nats / n);
   }
-  if (problem.complete_point) {
-    // Parameters integrated out: posterior draws into every point (one stream per point),
-    // and the profile likelihood for the best point.
+
+  // Parameters integrated out: posterior draws into every point (one stream per point),
+  // and the profile likelihood for the best point.
+  void complete_points() {
     std::vector<double> profile(res.samples.size(), -kInf);
     const int n_samples = static_cast<int>(res.samples.size());
     const int chunk = 256;
@@ -693,17 +700,50 @@ NestedResult run_nested_sampling(const NestedProblem& problem, const NestedOptio
         problem.complete_point(res.theta_max_like, nullptr);
       }
   }
-  res.ln_evidence = ln_z;
-  res.information_nats = std::max(0.0, h);
-  res.ln_evidence_err = std::sqrt(res.information_nats / n);
-  res.likelihood_calls = calls;
+};
+
+}  // namespace
+
+NestedResult run_nested_sampling(const NestedProblem& problem, const NestedOptions& options) {
+  if (const std::string v = options.Validate(); !v.empty()) throw InputError("nested sampling: " + v);
+  if (problem.dimension < 1) throw InputError("nested sampling: the problem has no free parameter");
+  if (options.live_points < problem.dimension + 1)
+    throw InputError(fmt::format("live_points = {}: must be >= dimension + 1 = {}", options.live_points,
+                                 problem.dimension + 1));
+  const auto t_start = std::chrono::steady_clock::now();
+  NestedRun run(problem, options);
+  NestedResult& res = run.res;
+  if (!run.start()) {
+    res.termination = NestedTermination::kBadLikelihood;
+    res.message = "No initial live point has a finite likelihood: check the priors and the data.";
+    return res;
+  }
+  std::vector<int> order(static_cast<std::size_t>(run.n));
+  std::vector<int> removed(static_cast<std::size_t>(run.batch));
+  std::vector<WalkOutcome> outcomes(static_cast<std::size_t>(run.batch));
+  res.termination = NestedTermination::kConverged;
+  for (long it = 0;; ++it) {
+    double ln_like_max = -kInf;
+    for (const auto& l : run.live) ln_like_max = std::max(ln_like_max, l.ln_like);
+    const double ln_remaining = ln_like_max + run.ln_x;
+    if (run.ln_z > -kInf && log_add_exp(run.ln_z, ln_remaining) - run.ln_z < options.ln_z_tolerance) break;
+    if (options.max_iterations > 0 && it >= options.max_iterations) {
+      res.termination = NestedTermination::kMaxIterations;
+      break;
+    }
+    if (options.progress && it % 50 == 0) options.progress(it, run.ln_z, ln_remaining);
+    if (!run.iterate(it, order, removed, outcomes)) break;
+  }
+  run.close();
+  if (problem.complete_point) run.complete_points();
+  res.likelihood_calls = run.calls;
   res.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t_start).count();
   if (res.termination == NestedTermination::kConverged) {
     res.message = fmt::format("Converged: the live points can add less than {:g} to ln Z.", options.ln_z_tolerance);
   } else if (res.termination == NestedTermination::kMaxIterations) {
     res.message = "Stopped at max_iterations before convergence: ln Z and its error are not reliable.";
   }
-  return res;
+  return std::move(res);
 }
 
 double NestedResult::effective_sample_size() const {
@@ -769,523 +809,7 @@ std::string NestedResult::FullReport() const {
 
 }  // namespace apsides
 
-// ---------------------------------------------------------------------------------------
-// The radial-velocity problem.
 namespace apsides {
-namespace {
-
-bool same_prior(const Prior& a, const Prior& b) {
-  return a.kind == b.kind && a.a == b.a && a.b == b.b && a.c == b.c && a.d == b.d;
-}
-bool same_ecc_prior(const EccentricityPrior& a, const EccentricityPrior& b) {
-  return a.kind == b.kind && a.a == b.a && a.b == b.b && a.max_ecc == b.max_ecc;
-}
-
-// Where each cube coordinate goes.
-enum class SlotKind { kPlain, kEccentricity, kOmega, kPhase, kTransitPeriod, kTransitPhase, kSelector };
-
-// Posterior repartitioning of some cube coordinates (see make_rv_evidence_problem): with
-// probability alpha (the selector coordinate below alpha) they are drawn uniformly inside
-// one window (a box: an interval per coordinate), chosen by weight; else from the prior.
-struct Repartition {
-  std::size_t selector_slot = 0;
-  std::vector<std::size_t> slots;               // the coordinates it moves
-  std::vector<std::vector<double>> lo, hi;      // per window, per coordinate
-  std::vector<double> weight, cum_weight;       // per window; normalised, cumulative
-  void add_window(std::vector<double> l, std::vector<double> h, double w) {
-    lo.push_back(std::move(l));
-    hi.push_back(std::move(h));
-    weight.push_back(w);
-  }
-  void normalise() {
-    double total = 0.0;
-    for (double w : weight) total += w;
-    double cum = 0.0;
-    cum_weight.clear();
-    for (double& w : weight) {
-      w /= total;
-      cum += w;
-      cum_weight.push_back(cum);
-    }
-    cum_weight.back() = 1.0;
-  }
-  // Moves the coordinates of `u` in place (from the prior draw to pi~'s) and returns
-  // ln(pi~ / pi) at the result.
-  double apply(std::vector<double>& u, double alpha) const {
-    const double s = u[selector_slot];
-    if (s < alpha) {
-      const double r = s / alpha;
-      std::size_t m = 0;
-      while (m + 1 < cum_weight.size() && r >= cum_weight[m]) ++m;
-      for (std::size_t c = 0; c < slots.size(); ++c) u[slots[c]] = lo[m][c] + u[slots[c]] * (hi[m][c] - lo[m][c]);
-    }
-    double q = 1.0 - alpha;
-    for (std::size_t m = 0; m < weight.size(); ++m) {
-      double d = alpha * weight[m];
-      for (std::size_t c = 0; c < slots.size() && d > 0.0; ++c) {
-        const double y = u[slots[c]];
-        d = (y >= lo[m][c] && y < hi[m][c]) ? d / (hi[m][c] - lo[m][c]) : 0.0;
-      }
-      q += d;
-    }
-    return std::log(q);
-  }
-};
-constexpr double kRepartitionAlpha = 0.5;
-struct Slot {
-  SlotKind kind;
-  std::size_t index;  // theta index (for kEccentricity/kOmega: the planet's h index)
-  int planet;
-};
-
-}  // namespace
-
-namespace {
-// The prior's CDF at x, by bisection on its quantile (priors here are continuous and
-// strictly increasing on their support).
-double prior_cdf(const Prior& p, double x) {
-  double lo = 0.0, hi = 1.0;
-  for (int i = 0; i < 60; ++i) {
-    const double mid = 0.5 * (lo + hi);
-    if (p.quantile(mid) < x) lo = mid; else hi = mid;
-  }
-  return 0.5 * (lo + hi);
-}
-}  // namespace
-
-RvEvidenceProblem make_rv_evidence_problem(const KeplerianModel& model, const ModelPriors& priors,
-                                           bool phase_conjunction, const EvidenceTransits* transits,
-                                           std::span<const WeightedHint> hints) {
-  const ModelLayout layout = model.layout();
-  const std::size_t n_params = layout.n_params();
-  if (priors.parameter.size() != n_params || priors.eccentricity.size() != static_cast<std::size_t>(layout.n_planets))
-    throw InputError(fmt::format("evidence: the priors have {} parameters for a model with {}",
-                                 priors.parameter.size(), n_params));
-  const int k = layout.n_planets;
-  const auto names = layout.names(model.data().instrument_names);
-
-  RvEvidenceProblem out;
-  std::vector<Slot> slots;
-  std::vector<KeplerianModel::IntegratedOffset> integrated;
-  auto offset_instrument = [&layout](std::size_t index) {
-    for (int i = 0; i < layout.n_instruments; ++i)
-      if (layout.offset_index(i) == index) return i;
-    return -1;
-  };
-  std::vector<double> fixed(n_params, 0.0);
-  std::vector<bool> phase(static_cast<std::size_t>(k), false);
-  for (std::size_t i = 0; i < n_params; ++i) {
-    const bool in_planet = i < static_cast<std::size_t>(5 * k);
-    const int planet = in_planet ? static_cast<int>(i / 5) : -1;
-    const std::size_t slot = i % 5;
-    const Prior& pr = priors.parameter[i];
-    if (in_planet && (slot == 2 || slot == 3)) {
-      const EccentricityPrior& ep = priors.eccentricity[static_cast<std::size_t>(planet)];
-      if (ep.kind == EccentricityPriorKind::kCircular) continue;  // h = k = 0
-      slots.push_back({slot == 2 ? SlotKind::kEccentricity : SlotKind::kOmega, i - slot + 2, planet});
-      if (slot == 2) out.prior_notes.push_back(fmt::format("{}.eccentricity  {}", planet_label(planet), ep.describe()));
-      continue;
-    }
-    if (pr.kind == PriorKind::kFixed) {
-      fixed[i] = pr.a;
-      out.prior_notes.push_back(fmt::format("{}  fixed at {:g}", names[i], pr.a));
-      continue;
-    }
-    if (const int inst = offset_instrument(i); inst >= 0 && pr.kind == PriorKind::kUniform && pr.b > pr.a) {
-      integrated.push_back({inst, pr.a, pr.b});
-      out.prior_notes.push_back(
-          fmt::format("{}  {} (integrated out analytically; samples drawn from its conditional posterior)", names[i],
-                      pr.describe()));
-      continue;
-    }
-    if (in_planet && slot == 4 && phase_conjunction && pr.kind == PriorKind::kUniform) {
-      phase[static_cast<std::size_t>(planet)] = true;
-      slots.push_back({SlotKind::kPhase, i, planet});
-      out.prior_notes.push_back(fmt::format(
-          "{}  uniform over one period centred on {:g} d (phase prior; same evidence as {})", names[i],
-          0.5 * (pr.a + pr.b), pr.describe()));
-      continue;
-    }
-    slots.push_back({SlotKind::kPlain, i, planet});
-    out.prior_notes.push_back(fmt::format("{}  {}", names[i], pr.describe()));
-  }
-
-  // Are the planets exchangeable (identical priors)? Then sort whole blocks by period.
-  // Planets named by transit times keep their slot; the others ("free") are ordered.
-  std::vector<int> free_planets;
-  for (int j = 0; j < k; ++j)
-    if (!priors.is_label_fixed(j)) free_planets.push_back(j);
-  const int n_free = static_cast<int>(free_planets.size());
-  bool exchangeable = true;
-  for (int f = 1; f < n_free; ++f) {
-    const std::size_t j = static_cast<std::size_t>(free_planets[static_cast<std::size_t>(f)]);
-    const std::size_t j0 = static_cast<std::size_t>(free_planets[0]);
-    for (std::size_t s = 0; s < 5; ++s)
-      if (!same_prior(priors.parameter[5 * j + s], priors.parameter[5 * j0 + s])) exchangeable = false;
-    if (!same_ecc_prior(priors.eccentricity[j], priors.eccentricity[j0])) exchangeable = false;
-  }
-  const bool order = priors.order_periods && n_free > 1;
-  const bool sort_blocks = order && exchangeable;
-  const bool constrain = order && !exchangeable;
-  const std::string fixed_text =
-      n_free < k ? fmt::format(" (planets named by transit times keep their letter and are not ordered: {} of {} ordered)",
-                               n_free, k)
-                 : std::string();
-  if (!order) {
-    out.ordering_note = n_free > 1 ? "planets not ordered by period (each mode counted k! times; evidence unaffected)"
-                                   : "at most one planet to order: no labelling" + fixed_text;
-  } else if (sort_blocks) {
-    out.ordering_note = fmt::format(
-        "planets labelled by increasing period: the {} planets are drawn from identical independent priors and "
-        "sorted by period; the sorted draw follows the ordered prior ({}! x the unordered density on "
-        "P_{} < P_{} < ...), normalised, so ln Z equals the unordered evidence (no correction added){}",
-        n_free, n_free, planet_label(free_planets[0]), planet_label(free_planets[1]), fixed_text);
-  } else {
-    // Prior probability of the ordering, by Monte Carlo with a fixed seed.
-    auto rng = make_stream(0x5eedULL, 0x07dULL);
-    std::uniform_real_distribution<double> unif(0.0, 1.0);
-    constexpr int kDraws = 200000;
-    int hits = 0;
-    std::vector<double> per(static_cast<std::size_t>(k));
-    for (int n = 0; n < kDraws; ++n) {
-      bool allowed = true;
-      for (int j = 0; j < k; ++j) {
-        per[static_cast<std::size_t>(j)] = priors.parameter[static_cast<std::size_t>(5 * j)].quantile(unif(rng));
-        const double e = priors.eccentricity[static_cast<std::size_t>(j)].quantile_e(unif(rng));
-        if (!priors.periastron_allowed(per[static_cast<std::size_t>(j)], std::sqrt(e), 0.0)) allowed = false;
-      }
-      std::vector<double> ordered;
-      for (int j : free_planets) ordered.push_back(per[static_cast<std::size_t>(j)]);
-      if (allowed && std::is_sorted(ordered.begin(), ordered.end()) &&
-          std::adjacent_find(ordered.begin(), ordered.end()) == ordered.end())
-        ++hits;
-    }
-    if (hits == 0)
-      throw InputError("priors: the planets' period priors leave no room for P_b < P_c < ...; check the "
-                       "[priors] period ranges");
-    const double frac = static_cast<double>(hits) / kDraws;
-    out.ln_evidence_offset = -std::log(frac);
-    out.ordering_note = fmt::format(
-        "planets labelled by increasing period: the planets have different priors, so the ordering is a "
-        "constraint (zero likelihood outside) and ln Z includes -ln P(ordered{}) = {:.4f} (P = {:.5f} "
-        "+- {:.5f} by Monte Carlo)",
-        priors.periastron_limit_active() ? ", periastron outside the star" : "", out.ln_evidence_offset, frac,
-        std::sqrt(frac * (1 - frac) / kDraws));
-  }
-  // Orbits crossing the star are excluded (zero likelihood there): the prior left is
-  // renormalised by the allowed fraction of each planet (already in the Monte Carlo above).
-  const bool periastron = priors.periastron_limit_active() && k > 0;
-  if (periastron && !constrain) {
-    double ln_allowed = 0.0;
-    for (int j = 0; j < k; ++j) ln_allowed += std::log(priors.periastron_allowed_fraction(j));
-    if (!std::isfinite(ln_allowed))
-      throw InputError("priors: every orbit of the period prior crosses the star (periastron inside the stellar "
-                       "radius); check [search] min_period_d and [star]");
-    out.ln_evidence_offset -= ln_allowed;
-    out.prior_notes.push_back(fmt::format(
-        "orbits with periastron inside the star (a(1 - e) < {:.3g} R_sun) excluded; the prior is renormalised by "
-        "the allowed fraction {:.4f} per planet (ln Z includes {:+.4f})",
-        priors.min_periastron_au * constants::kAu / constants::kRSun, priors.periastron_allowed_fraction(0),
-        -ln_allowed));
-  } else if (periastron) {
-    out.prior_notes.push_back(fmt::format("orbits with periastron inside the star (a(1 - e) < {:.3g} R_sun) excluded",
-                                          priors.min_periastron_au * constants::kAu / constants::kRSun));
-  }
-
-  // Transit times: terms on the model's planets named by them, and for letters beyond
-  // the model's planets a transit-only ephemeris (P, t_conj) with the period and phase
-  // priors that planet would have, so every model explains the same data.
-  struct TransitTerm {
-    std::size_t period_index, t_conj_index;
-    long jitter_index;  // -1: none
-    std::shared_ptr<const TransitTimingLikelihood> like;
-  };
-  std::vector<TransitTerm> terms;
-  std::vector<Prior> extra_period_priors, extra_t_priors;
-  std::size_t n_total = n_params;
-  std::vector<std::string> all_names = names;
-  struct TransitWindowSpec {
-    TransitData td;
-    int period_slot = -1, phase_slot = -1;  // cube coordinates (-1: none)
-    Prior pp, tp;                           // period and t_conj priors
-  };
-  std::vector<TransitWindowSpec> transit_windows;
-  if (transits != nullptr && transits->times.size() > 0) {
-    for (int j = 0; j < 26; ++j) {
-      const TransitData td = transits->times.for_planet(planet_label(j));
-      if (td.size() == 0) continue;
-      auto like = std::make_shared<const TransitTimingLikelihood>(td, model.data().reference_epoch_bjd);
-      if (j < k) {
-        terms.push_back({static_cast<std::size_t>(5 * j), static_cast<std::size_t>(5 * j + 4),
-                         layout.transit_jitter_index(j), like});
-        TransitWindowSpec w{td, -1, -1, priors.parameter[static_cast<std::size_t>(5 * j)],
-                            priors.parameter[static_cast<std::size_t>(5 * j + 4)]};
-        for (std::size_t c = 0; c < slots.size(); ++c) {
-          if (slots[c].kind == SlotKind::kPlain && slots[c].index == static_cast<std::size_t>(5 * j)) w.period_slot = static_cast<int>(c);
-          if (slots[c].kind == SlotKind::kPhase && slots[c].planet == j) w.phase_slot = static_cast<int>(c);
-        }
-        transit_windows.push_back(std::move(w));
-        continue;
-      }
-      if (transits->wide_priors.parameter.size() < static_cast<std::size_t>(5 * j + 5))
-        throw InputError(fmt::format("evidence: no priors for planet '{}' named by transit times", planet_label(j)));
-      const Prior& pp = transits->wide_priors.parameter[static_cast<std::size_t>(5 * j)];
-      const Prior& tp = transits->wide_priors.parameter[static_cast<std::size_t>(5 * j + 4)];
-      transit_windows.push_back({td, static_cast<int>(slots.size()), static_cast<int>(slots.size()) + 1, pp, tp});
-      slots.push_back({SlotKind::kTransitPeriod, n_total, j});
-      slots.push_back({SlotKind::kTransitPhase, n_total + 1, j});
-      extra_period_priors.push_back(pp);
-      extra_t_priors.push_back(tp);
-      terms.push_back({n_total, n_total + 1, layout.transit_jitter_index(j), like});
-      all_names.push_back(planet_label(j) + ".period_d");
-      all_names.push_back(planet_label(j) + ".t_conj_d");
-      out.prior_notes.push_back(fmt::format("{}.period_d  {} (transit times only: no velocity signal in this model)",
-                                            planet_label(j), pp.describe()));
-      out.prior_notes.push_back(fmt::format("{}.t_conj_d  uniform over one period (phase prior)", planet_label(j)));
-      n_total += 2;
-    }
-  }
-  out.n_transit_points = 0;
-  for (const auto& t : terms) out.n_transit_points += t.like->size();
-
-  // Something must be left to sample: keep the first offset a coordinate then.
-  if (slots.empty() && !integrated.empty()) {
-    const std::size_t i = layout.offset_index(integrated.front().instrument);
-    slots.push_back({SlotKind::kPlain, i, -1});
-    for (auto& note : out.prior_notes)
-      if (note.rfind(names[i] + "  ", 0) == 0) note = fmt::format("{}  {}", names[i], priors.parameter[i].describe());
-    integrated.erase(integrated.begin());
-  }
-  out.n_integrated_params = static_cast<int>(integrated.size());
-
-  std::vector<Repartition> repartitions;
-  // A transiting planet's period and phase: a window of +-20 sigma around the linear
-  // ephemeris of its transit times (a box in the two coordinates).
-  for (const TransitWindowSpec& w : transit_windows) {
-    if (w.period_slot < 0) continue;
-    EphemerisResult eph;
-    try {
-      eph = fit_ephemeris(w.td);
-    } catch (const InputError&) {
-      continue;  // fewer than two transits: no window
-    }
-    const double p_hat = eph.period_days.value, sp = eph.period_days.err;
-    if (!(std::isfinite(p_hat) && std::isfinite(sp) && sp > 0.0) || !(p_hat > w.pp.lower() && p_hat < w.pp.upper()) ||
-        !std::isfinite(w.pp.log_density(p_hat)))
-      continue;
-    const double up = prior_cdf(w.pp, p_hat);
-    const double hp = std::clamp(std::exp(w.pp.log_density(p_hat)) * 20.0 * sp, 1e-12, 0.1);
-    Repartition rep;
-    rep.slots = {static_cast<std::size_t>(w.period_slot)};
-    const double plo = std::max(0.0, up - hp), phi = std::min(1.0, up + hp);
-    const double t_ref_err = eph.t_ref_days.err;
-    if (w.phase_slot < 0 || !(std::isfinite(eph.t_ref_days.value) && std::isfinite(t_ref_err) && t_ref_err > 0.0)) {
-      rep.add_window({plo}, {phi}, 1.0);
-    } else {
-      rep.slots.push_back(static_cast<std::size_t>(w.phase_slot));
-      const double centre = 0.5 * (w.tp.a + w.tp.b);
-      const double t_ref = eph.reference_epoch_bjd + eph.t_ref_days.value - model.data().reference_epoch_bjd;
-      const double cycles = (centre - t_ref) / p_hat;
-      const double s_phase = std::hypot(t_ref_err, cycles * sp) / p_hat;
-      const double v = (t_ref - centre) / p_hat + 0.5;
-      const double uc = v - std::floor(v);
-      const double hh = std::clamp(20.0 * s_phase, 1e-12, 0.25);
-      // The phase window wraps around the cube's edge when it must: two boxes then.
-      if (uc - hh < 0.0) {
-        rep.add_window({plo, 0.0}, {phi, uc + hh}, uc + hh);
-        rep.add_window({plo, uc - hh + 1.0}, {phi, 1.0}, hh - uc);
-      } else if (uc + hh > 1.0) {
-        rep.add_window({plo, uc - hh}, {phi, 1.0}, 1.0 - (uc - hh));
-        rep.add_window({plo, 0.0}, {phi, uc + hh - 1.0}, uc + hh - 1.0);
-      } else {
-        rep.add_window({plo, uc - hh}, {phi, uc + hh}, 1.0);
-      }
-    }
-    rep.normalise();
-    rep.selector_slot = slots.size();
-    slots.push_back({SlotKind::kSelector, 0, -1});
-    repartitions.push_back(std::move(rep));
-  }
-  // Mode jumps on each ordered planet's block, aimed at the hinted signals: the peak width
-  // in period is about P^2 / baseline; K within half its value; the phase within 0.08
-  // cycles (the signal's phase is as well known as its period at mid-baseline).
-  {
-    const double baseline = std::max(model.data().baseline_days(), 1.0);
-    for (int j : free_planets) {
-      const std::size_t b = static_cast<std::size_t>(5 * j);
-      int c_period = -1, c_amplitude = -1, c_phase = -1;
-      std::vector<int> others;
-      for (std::size_t c = 0; c < slots.size(); ++c) {
-        const Slot& sc = slots[c];
-        if (sc.planet != j) continue;
-        if (sc.kind == SlotKind::kPlain && sc.index == b) c_period = static_cast<int>(c);
-        if (sc.kind == SlotKind::kPlain && sc.index == b + 1) c_amplitude = static_cast<int>(c);
-        if (sc.kind == SlotKind::kPhase) c_phase = static_cast<int>(c);
-        if ((sc.kind == SlotKind::kPlain && sc.index == b + 4) || sc.kind == SlotKind::kPhase ||
-            sc.kind == SlotKind::kEccentricity || sc.kind == SlotKind::kOmega)
-          others.push_back(static_cast<int>(c));
-      }
-      if (c_period < 0) continue;
-      const Prior& pp = priors.parameter[b];
-      NestedProblem::Jump jump;
-      jump.coordinate = c_period;
-      jump.small_coordinate = c_amplitude;
-      jump.phase_coordinate = c_phase;
-      Repartition rep;
-      const Prior& kp = priors.parameter[b + 1];
-      const Prior& tp = priors.parameter[b + 4];
-      for (const WeightedHint& wh : hints) {
-        const double hint = wh.signal.period_days;
-        if (!(hint > pp.lower() && hint < pp.upper()) || !std::isfinite(pp.log_density(hint)) || !(wh.weight > 0.0))
-          continue;
-        const double sigma_p = 0.5 * hint * hint / baseline;
-        NestedProblem::Jump::Target t;
-        t.weight = wh.weight;
-        t.period_u = prior_cdf(pp, hint);
-        t.period_w = std::max(std::exp(pp.log_density(hint)) * sigma_p, 1e-9);
-        const double kk = wh.signal.semi_amplitude_m_s;
-        if (c_amplitude >= 0 && std::isfinite(kk) && kk > kp.lower() && kk < kp.upper() &&
-            std::isfinite(kp.log_density(kk))) {
-          t.amplitude_u = prior_cdf(kp, kk);
-          t.amplitude_w = std::clamp(std::exp(kp.log_density(kk)) * 0.5 * kk, 0.005, 0.3);
-        }
-        if (c_phase >= 0 && std::isfinite(wh.signal.t_conj_days)) {
-          const double v = (wh.signal.t_conj_days - 0.5 * (tp.a + tp.b)) / hint + 0.5;
-          t.phase_u = v - std::floor(v);
-          t.phase_w = 0.08;
-        }
-        jump.targets.push_back(t);
-        rep.add_window({std::max(0.0, t.period_u - t.period_w)}, {std::min(1.0, t.period_u + t.period_w)}, wh.weight);
-      }
-      if (!rep.lo.empty()) {
-        rep.normalise();
-        rep.slots = {static_cast<std::size_t>(c_period)};
-        rep.selector_slot = slots.size();
-        others.push_back(static_cast<int>(slots.size()));
-        slots.push_back({SlotKind::kSelector, 0, j});
-        repartitions.push_back(std::move(rep));
-      }
-      jump.redraw_uniform = others;
-      out.problem.jumps.push_back(std::move(jump));
-    }
-  }
-
-  const ModelPriors pri = priors;
-  const std::vector<Slot> sl = slots;
-  const auto layout_copy = layout;
-  out.problem.dimension = static_cast<int>(slots.size());
-  out.n_free_params = out.n_integrated_params;
-  for (const Slot& s : slots)
-    if (s.kind != SlotKind::kSelector) ++out.n_free_params;
-  out.problem.slice_steps_per_dimension = n_free > 1 ? 5.0 : 3.0;
-  out.problem.n_params = static_cast<int>(n_total) + (repartitions.empty() ? 0 : 1);
-  if (!repartitions.empty()) out.problem.log_prior_ratio_index = static_cast<int>(n_total);
-  out.problem.names = all_names;
-  out.problem.prior_transform = [pri, sl, fixed, layout_copy, sort_blocks, k, free_planets, extra_period_priors,
-                                 extra_t_priors, n_params, repartitions,
-                                 n_total](std::span<const double> u_prior, std::span<double> theta) {
-    for (std::size_t i = 0; i < n_params; ++i) theta[i] = fixed[i];
-    // Repartitioned coordinates move first (pi~); the usual transform then reads them.
-    thread_local std::vector<double> moved;
-    moved.assign(u_prior.begin(), u_prior.end());
-    double ln_ratio = 0.0;
-    for (const auto& rp : repartitions) ln_ratio += rp.apply(moved, kRepartitionAlpha);
-    if (!repartitions.empty()) theta[n_total] = ln_ratio;
-    const std::vector<double>& u = moved;
-    std::size_t extra = 0;
-    // Eccentricity and omega first land in (h, k) slots as (e, w), converted below.
-    std::vector<double> phase_u(static_cast<std::size_t>(k), -1.0);
-    for (std::size_t s = 0; s < sl.size(); ++s) {
-      const Slot& slot = sl[s];
-      switch (slot.kind) {
-        case SlotKind::kPlain: theta[slot.index] = pri.parameter[slot.index].quantile(u[s]); break;
-        case SlotKind::kEccentricity:
-          theta[slot.index] = pri.eccentricity[static_cast<std::size_t>(slot.planet)].quantile_e(u[s]);
-          break;
-        case SlotKind::kOmega: theta[slot.index + 1] = 2.0 * constants::kPi * u[s] - constants::kPi; break;
-        case SlotKind::kPhase: phase_u[static_cast<std::size_t>(slot.planet)] = u[s]; break;
-        case SlotKind::kTransitPeriod: theta[slot.index] = extra_period_priors[extra].quantile(u[s]); break;
-        case SlotKind::kSelector: break;  // read with the period below
-        case SlotKind::kTransitPhase: {
-          const Prior& tp = extra_t_priors[extra];
-          theta[slot.index] = 0.5 * (tp.a + tp.b) + (u[s] - 0.5) * theta[slot.index - 1];
-          ++extra;
-          break;
-        }
-      }
-    }
-    for (int j = 0; j < k; ++j) {
-      const std::size_t b = static_cast<std::size_t>(5 * j);
-      const EccentricityPrior& ep = pri.eccentricity[static_cast<std::size_t>(j)];
-      if (ep.kind != EccentricityPriorKind::kCircular) {
-        const double e = theta[b + 2], w = theta[b + 3], r = std::sqrt(e);
-        theta[b + 2] = r * std::cos(w);
-        theta[b + 3] = r * std::sin(w);
-      }
-      const double pu = phase_u[static_cast<std::size_t>(j)];
-      if (pu >= 0.0) {
-        const Prior& tp = pri.parameter[b + 4];
-        theta[b + 4] = 0.5 * (tp.a + tp.b) + (pu - 0.5) * theta[b];
-      }
-    }
-    if (sort_blocks) {
-      std::array<double, 5> tmp{};
-      // Insertion sort of the free planets' blocks by period (k is small); planets named
-      // by transit times stay in their slots.
-      const int nf = static_cast<int>(free_planets.size());
-      for (int j = 1; j < nf; ++j) {
-        for (int m = j; m > 0 && theta[static_cast<std::size_t>(5 * free_planets[static_cast<std::size_t>(m)])] <
-                                     theta[static_cast<std::size_t>(5 * free_planets[static_cast<std::size_t>(m - 1)])];
-             --m) {
-          const std::size_t a = static_cast<std::size_t>(5 * free_planets[static_cast<std::size_t>(m)]);
-          const std::size_t c = static_cast<std::size_t>(5 * free_planets[static_cast<std::size_t>(m - 1)]);
-          for (int q = 0; q < 5; ++q) tmp[static_cast<std::size_t>(q)] = theta[a + static_cast<std::size_t>(q)];
-          for (int q = 0; q < 5; ++q) theta[a + static_cast<std::size_t>(q)] = theta[c + static_cast<std::size_t>(q)];
-          for (int q = 0; q < 5; ++q) theta[c + static_cast<std::size_t>(q)] = tmp[static_cast<std::size_t>(q)];
-        }
-      }
-    }
-    (void)layout_copy;
-  };
-  const KeplerianModel* m = &model;
-  auto likelihood_with = [m, constrain, k, pri, periastron, terms,
-                          n_params](std::vector<KeplerianModel::IntegratedOffset> integrated) {
-    return [m, constrain, k, pri, periastron, terms, n_params, integrated](std::span<const double> theta) {
-      if (constrain && pri.first_unordered_planet(theta, k) >= 0) return -kInf;
-      if (periastron)
-        for (int j = 0; j < k; ++j) {
-          const std::size_t b = static_cast<std::size_t>(5 * j);
-          if (!pri.periastron_allowed(theta[b], theta[b + 2], theta[b + 3])) return -kInf;
-        }
-      double l = integrated.empty() ? m->log_likelihood(theta.first(n_params))
-                                    : m->log_likelihood_offsets_integrated(theta.first(n_params), integrated);
-      if (!std::isfinite(l)) return l;
-      for (const auto& t : terms)
-        l += t.like->log_likelihood(theta[t.period_index], theta[t.t_conj_index],
-                                    t.jitter_index >= 0 ? theta[static_cast<std::size_t>(t.jitter_index)] : 0.0);
-      return l;
-    };
-  };
-  out.problem.log_likelihood = likelihood_with(integrated);
-  if (!integrated.empty()) {
-    const std::function<double(std::span<const double>)> like_full = likelihood_with({});
-    const ModelLayout lay = layout;
-    out.problem.complete_point = [m, like_full, integrated, lay, n_params](std::span<double> theta,
-                                                                      std::mt19937_64* rng) {
-      std::vector<KeplerianModel::OffsetConditional> cond;
-      if (!std::isfinite(m->log_likelihood_offsets_integrated(theta.first(n_params), integrated, &cond)))
-        return -kInf;
-      for (std::size_t q = 0; q < integrated.size(); ++q) {
-        const auto& c = cond[q];
-        double g = std::clamp(c.mean_m_s, c.lower_m_s, c.upper_m_s);
-        if (rng != nullptr) g = truncated_normal_draw(c.mean_m_s, c.sd_m_s, c.lower_m_s, c.upper_m_s, *rng);
-        theta[lay.offset_index(integrated[q].instrument)] = g;
-      }
-      return like_full(theta);  // the same terms with the offsets in place, none integrated
-    };
-  }
-  return out;
-}
 
 SignalHint sinusoid_hint(const VelocityData& data, double period_days) {
   SignalHint h;
@@ -1349,28 +873,12 @@ std::string CompareOptions::Validate() const {
   return nested.Validate();
 }
 
-CompareResult compare_planet_counts(const VelocityData& data, const ModelLayout& base_layout,
-                                    const std::function<ModelPriors(const ModelLayout&)>& priors_for,
-                                    const CompareOptions& options,
-                                    const std::function<void(int k, const std::string& status)>& on_status,
-                                    const TransitData* transits) {
-  if (const std::string v = options.Validate(); !v.empty()) throw InputError("compare: " + v);
-  const auto t_start = std::chrono::steady_clock::now();
-  CompareResult res;
-  // Transit times: the largest letter they name sets the priors of transit-only planets.
-  std::optional<EvidenceTransits> et;
-  if (transits != nullptr && transits->size() > 0) {
-    int letters = 0;
-    for (int j = 0; j < 26; ++j)
-      if (transits->for_planet(planet_label(j)).size() > 0) letters = j + 1;
-    ModelLayout wide = base_layout;
-    wide.n_planets = std::max(letters, 1);
-    et = EvidenceTransits{*transits, priors_for(wide)};
-  }
-  std::size_t n_points_total = data.size();
-  // Mode-jump targets: the caller's periods and the periodogram's strongest peaks.
-  // The caller's (a search's) signals share half the weight, the periodogram's peaks the
-  // other half (all of it when there is only one group).
+namespace {
+
+// Mode-jump targets: the caller's signals (a search's planets) and the periodogram's 20
+// strongest peaks with the sinusoid's K and phase. The caller's signals share half the
+// weight, the peaks the other half (all of it when there is only one group).
+std::vector<WeightedHint> comparison_hints(const VelocityData& data, const CompareOptions& options) {
   std::vector<WeightedHint> hints;
   for (const SignalHint& h : options.search_hints) hints.push_back({h, 1.0});
   if (options.max_planets > 0 && data.size() >= data.n_instruments() + 3) {
@@ -1384,70 +892,71 @@ CompareResult compare_planet_counts(const VelocityData& data, const ModelLayout&
                          : static_cast<double>(options.search_hints.size()) / static_cast<double>(pg.peaks.size());
     for (const Peak& pk : pg.peaks) hints.push_back({sinusoid_hint(data, pk.period_days), w});
   }
-  for (int k = options.min_planets; k <= options.max_planets; ++k) {
-    ModelLayout layout = base_layout;
-    layout.n_planets = k;
-    ModelPriors priors = priors_for(layout);
-    if (et) priors.label_fixed = et->times.planets_with_times(k);
-    const KeplerianModel model(data, layout);
-    RvEvidenceProblem prob =
-        make_rv_evidence_problem(model, priors, options.phase_conjunction, et ? &*et : nullptr, hints);
-    n_points_total = data.size() + prob.n_transit_points;
-    const int n_free = prob.n_free_params;
-    if (static_cast<std::size_t>(n_free) + 1 >= data.size())
-      throw InputError(fmt::format("compare: {} planet(s) need {} free parameters but the data have only {} points",
-                                   k, n_free, data.size()));
-    if (on_status)
-      on_status(k, prob.n_integrated_params > 0
-                       ? fmt::format("{} planet(s): {} free parameters ({} offsets integrated analytically)", k,
-                                     n_free, prob.n_integrated_params)
-                       : fmt::format("{} planet(s): {} free parameters", k, n_free));
-    NestedOptions nopt = options.nested;
-    if (nopt.live_points < prob.problem.dimension + 1) nopt.live_points = prob.problem.dimension + 1;
-    ComparisonRow row;
-    row.n_planets = k;
-    row.n_params = n_free;
-    row.nested = run_nested_sampling(prob.problem, nopt);
-    row.ordering_note = prob.ordering_note;
-    row.ln_evidence = row.nested.ln_evidence + prob.ln_evidence_offset;
-    row.ln_evidence_err = row.nested.ln_evidence_err;
-    row.information_nats = row.nested.information_nats;
-    row.ln_like_max = row.nested.ln_like_max;
-    row.bic = bic(row.ln_like_max, row.n_params, n_points_total);
-    row.aicc = aicc(row.ln_like_max, row.n_params, n_points_total);
-    row.seconds = row.nested.seconds;
-    row.likelihood_calls = row.nested.likelihood_calls;
-    if (!res.rows.empty()) {
-      const ComparisonRow& prev = res.rows.back();
-      row.ln_bayes_vs_previous = row.ln_evidence - prev.ln_evidence;
-      row.ln_bayes_err = std::hypot(row.ln_evidence_err, prev.ln_evidence_err);
-      row.bayes_wording = kass_raftery_wording(row.ln_bayes_vs_previous);
-    }
-    {
-      // The largest model's prior lines cover every smaller one.
-      res.notes.erase(std::remove_if(res.notes.begin(), res.notes.end(),
-                                     [](const std::string& s) { return s.rfind("prior: ", 0) == 0; }),
-                      res.notes.end());
-      for (const auto& p : prob.prior_notes) res.notes.push_back("prior: " + p);
-    }
-    res.rows.push_back(std::move(row));
-  }
-  // A model with one planet more contains the smaller one (K -> 0), so its evidence can
-  // fall below the smaller model's only by the prior mass of a negligible K (about ln 0.1
-  // with the default K prior) -- not by many nats. A much lower ln Z means nested sampling
-  // lost the smaller model's region: say so rather than let the row read as evidence.
+  return hints;
+}
+
+// Nested sampling of the k-planet model: one comparison row (its Bayes factor against
+// the previous row is filled by the caller).
+ComparisonRow compare_one(const VelocityData& data, const ModelLayout& base_layout,
+                          const std::function<ModelPriors(const ModelLayout&)>& priors_for, const CompareOptions& options,
+                          const std::optional<EvidenceTransits>& et, std::span<const WeightedHint> hints, int k,
+                          const std::function<void(int k, const std::string& status)>& on_status,
+                          std::vector<std::string>& prior_notes, std::size_t& n_points_total) {
+  ModelLayout layout = base_layout;
+  layout.n_planets = k;
+  ModelPriors priors = priors_for(layout);
+  if (et) priors.label_fixed = et->times.planets_with_times(k);
+  const KeplerianModel model(data, layout);
+  const RvEvidenceProblem prob = make_rv_evidence_problem(model, priors, options.phase_conjunction, et ? &*et : nullptr, hints);
+  n_points_total = data.size() + prob.n_transit_points;
+  const int n_free = prob.n_free_params;
+  if (static_cast<std::size_t>(n_free) + 1 >= data.size())
+    throw InputError(fmt::format("compare: {} planet(s) need {} free parameters but the data have only {} points", k,
+                                 n_free, data.size()));
+  if (on_status)
+    on_status(k, prob.n_integrated_params > 0
+                     ? fmt::format("{} planet(s): {} free parameters ({} offsets integrated analytically)", k, n_free,
+                                   prob.n_integrated_params)
+                     : fmt::format("{} planet(s): {} free parameters", k, n_free));
+  NestedOptions nopt = options.nested;
+  if (nopt.live_points < prob.problem.dimension + 1) nopt.live_points = prob.problem.dimension + 1;
+  ComparisonRow row;
+  row.n_planets = k;
+  row.n_params = n_free;
+  row.nested = run_nested_sampling(prob.problem, nopt);
+  row.ordering_note = prob.ordering_note;
+  row.ln_evidence = row.nested.ln_evidence + prob.ln_evidence_offset;
+  row.ln_evidence_err = row.nested.ln_evidence_err;
+  row.information_nats = row.nested.information_nats;
+  row.ln_like_max = row.nested.ln_like_max;
+  row.bic = bic(row.ln_like_max, row.n_params, n_points_total);
+  row.aicc = aicc(row.ln_like_max, row.n_params, n_points_total);
+  row.seconds = row.nested.seconds;
+  row.likelihood_calls = row.nested.likelihood_calls;
+  prior_notes = prob.prior_notes;  // the largest model's prior lines cover every smaller one
+  return row;
+}
+
+// A model with one planet more contains the smaller one (K -> 0), so its evidence can
+// fall below the smaller model's only by the prior mass of a negligible K (about ln 0.1
+// with the default K prior) -- not by many nats. A much lower ln Z means nested sampling
+// lost the smaller model's region: say so rather than let the row read as evidence.
+void mark_unreliable(CompareResult& res) {
   for (std::size_t k = 1; k < res.rows.size(); ++k) {
-    if (res.rows[k].ln_bayes_vs_previous < -5.0) {
-      res.rows[k].unreliable = true;
-      res.rows[k].bayes_wording = "UNRELIABLE (sampler lost the smaller model's region)";
-      res.notes.push_back(fmt::format(
-          "UNRELIABLE: ln Z({}) is {:.1f} below ln Z({}), although {} planets include {} (a planet with K -> 0): "
-          "nested sampling lost that region. Do not read ln B({} vs {}) as evidence; rerun with more live points "
-          "(--live-points) or another --seed.",
-          res.rows[k].n_planets, -res.rows[k].ln_bayes_vs_previous, res.rows[k - 1].n_planets, res.rows[k].n_planets,
-          res.rows[k - 1].n_planets, res.rows[k].n_planets, res.rows[k - 1].n_planets));
-    }
+    if (!(res.rows[k].ln_bayes_vs_previous < -5.0)) continue;
+    res.rows[k].unreliable = true;
+    res.rows[k].bayes_wording = "UNRELIABLE (sampler lost the smaller model's region)";
+    res.notes.push_back(fmt::format(
+        "UNRELIABLE: ln Z({}) is {:.1f} below ln Z({}), although {} planets include {} (a planet with K -> 0): "
+        "nested sampling lost that region. Do not read ln B({} vs {}) as evidence; rerun with more live points "
+        "(--live-points) or another --seed.",
+        res.rows[k].n_planets, -res.rows[k].ln_bayes_vs_previous, res.rows[k - 1].n_planets, res.rows[k].n_planets,
+        res.rows[k - 1].n_planets, res.rows[k].n_planets, res.rows[k - 1].n_planets));
   }
+}
+
+void select_and_note(CompareResult& res, const CompareOptions& options, const std::optional<EvidenceTransits>& et,
+                     std::size_t n_points_total) {
   res.selected_n_planets = options.min_planets;
   for (std::size_t k = 1; k < res.rows.size(); ++k) {
     if (res.rows[k].ln_bayes_vs_previous > options.bayes_threshold &&
@@ -1461,7 +970,6 @@ CompareResult compare_planet_counts(const VelocityData& data, const ModelLayout&
   bool failed = false;
   for (const auto& r : res.rows)
     if (r.nested.termination != NestedTermination::kConverged) failed = true;
-  res.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t_start).count();
   res.message = failed ? "Nested sampling did not converge for every model: see the rows' messages."
                        : fmt::format("Selected {} planet(s).", res.selected_n_planets);
   res.notes.push_back(
@@ -1478,6 +986,46 @@ CompareResult compare_planet_counts(const VelocityData& data, const ModelLayout&
         "transit-only ephemeris, so the Bayes factors compare velocity signals.",
         et->times.size(), n_points_total));
   res.n_points = n_points_total;
+}
+
+}  // namespace
+
+CompareResult compare_planet_counts(const VelocityData& data, const ModelLayout& base_layout,
+                                    const std::function<ModelPriors(const ModelLayout&)>& priors_for,
+                                    const CompareOptions& options,
+                                    const std::function<void(int k, const std::string& status)>& on_status,
+                                    const TransitData* transits) {
+  if (const std::string v = options.Validate(); !v.empty()) throw InputError("compare: " + v);
+  const auto t_start = std::chrono::steady_clock::now();
+  CompareResult res;
+  // Transit times: the largest letter they name sets the priors of transit-only planets.
+  std::optional<EvidenceTransits> et;
+  if (transits != nullptr && transits->size() > 0) {
+    int letters = 0;
+    for (int j = 0; j < 26; ++j)
+      if (transits->for_planet(planet_label(j)).size() > 0) letters = j + 1;
+    ModelLayout wide = base_layout;
+    wide.n_planets = std::max(letters, 1);
+    et = EvidenceTransits{*transits, priors_for(wide), wide};
+  }
+  std::size_t n_points_total = data.size();
+  const std::vector<WeightedHint> hints = comparison_hints(data, options);
+  std::vector<std::string> prior_notes;
+  for (int k = options.min_planets; k <= options.max_planets; ++k) {
+    ComparisonRow row =
+        compare_one(data, base_layout, priors_for, options, et, hints, k, on_status, prior_notes, n_points_total);
+    if (!res.rows.empty()) {
+      const ComparisonRow& prev = res.rows.back();
+      row.ln_bayes_vs_previous = row.ln_evidence - prev.ln_evidence;
+      row.ln_bayes_err = std::hypot(row.ln_evidence_err, prev.ln_evidence_err);
+      row.bayes_wording = kass_raftery_wording(row.ln_bayes_vs_previous);
+    }
+    res.rows.push_back(std::move(row));
+  }
+  for (const auto& p : prior_notes) res.notes.push_back("prior: " + p);
+  mark_unreliable(res);
+  select_and_note(res, options, et, n_points_total);
+  res.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t_start).count();
   return res;
 }
 

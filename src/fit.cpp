@@ -17,6 +17,7 @@
 #include "apsides/model_priors.h"
 #include "apsides/orbit.h"
 #include "apsides/periodogram.h"
+#include "apsides/posterior_model.h"
 #include "kernels/kernels.h"
 
 namespace apsides {
@@ -28,201 +29,64 @@ constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
 constexpr double kSiderealDayPerDay = 1.0027379093;  // sidereal days per solar day
 constexpr double kYearDays = 365.25;
 
-bool is_hk(const ModelLayout& L, std::size_t i) {
-  return i < static_cast<std::size_t>(5 * L.n_planets) && (i % 5 == 2 || i % 5 == 3);
-}
-
-// Everything one evaluation needs: the data in plain arrays, which parameters are free,
-// linear (profiled) or fixed, and the transit terms.
+// Everything one evaluation needs: the composed posterior (blocks, priors, terms), and
+// which parameters are free nonlinear ones (optimised) or free linear ones (profiled by
+// the terms that hold them). Fixed parameters keep their values.
 class Objective {
  public:
   Objective(const FitProblem& pb, bool use_prior)
-      : pb_(pb), L_(pb.layout), use_prior_(use_prior), n_(pb.data.size()) {
-    const std::size_t np = L_.n_params();
-    for (std::size_t i = 0; i < np; ++i) {
-      const bool fixed = pb.priors.parameter[i].kind == PriorKind::kFixed;
-      const bool linear = is_linear(i);
-      if (linear && !fixed) linear_.push_back(i);
-      if (!linear && !fixed) nonlinear_.push_back(i);
-    }
-    for (int j = 0; j < L_.n_planets; ++j) {
-      const TransitData td = pb.transits.size() > 0 ? pb.transits.for_planet(planet_label(j)) : TransitData{};
-      if (td.size() > 0) transit_terms_.push_back({j, std::make_unique<TransitTimingLikelihood>(td, pb.data.reference_epoch_bjd)});
-    }
-    model_.resize(n_);
-    scratch_.resize(2 * n_);
-    w_.resize(n_);
+      : model_(make_posterior(pb.data, pb.layout, pb.priors, pb.transits)), use_prior_(use_prior) {
+    const ParameterLayout& L = model_.layout();
+    free_linear_.assign(L.n_params(), false);
+    for (const auto& b : L.blocks())
+      for (int s = 0; s < b->size(); ++s) {
+        const std::size_t i = b->index(s);
+        if (pb.priors.parameter[i].kind == PriorKind::kFixed) continue;
+        if (b->info(s).linear) free_linear_[i] = true;
+        else nonlinear_.push_back(i);
+      }
   }
 
-  bool is_linear(std::size_t i) const {
-    for (int k = 0; k < L_.n_instruments; ++k)
-      if (i == L_.offset_index(k)) return true;
-    for (int p = 1; p <= L_.trend_order(); ++p)
-      if (i == L_.trend_index(p)) return true;
-    return false;
-  }
-
+  const PosteriorModel& model() const { return model_; }
+  const ParameterLayout& layout() const { return model_.layout(); }
   const std::vector<std::size_t>& nonlinear() const { return nonlinear_; }
-  std::size_t n_transit_points() const {
-    std::size_t s = 0;
-    for (const auto& t : transit_terms_) s += t.second->size();
-    return s;
-  }
+  std::size_t n_transit_points() const { return model_.n_transit_points(); }
   int evaluations() const { return evaluations_; }
 
   // Evaluates the objective at theta (nonlinear entries as given; linear ones solved and
-  // written back). Returns ln L (+ ln prior) minus the eccentricity penalty.
+  // written back). Returns ln L (+ ln prior) minus the blocks' regularisation penalty
+  // (a planet's eccentricity beyond its limit is evaluated at the limit and penalised).
   double evaluate(std::vector<double>& theta) {
     ++evaluations_;
-    double penalty = 0.0;
-    // Planets (eccentricity kept inside the prior's limit; the excess is penalised).
-    std::fill(model_.begin(), model_.end(), 0.0);
-    const double* t = pb_.data.time_days.data();
-    for (int j = 0; j < L_.n_planets; ++j) {
-      const std::size_t k = L_.planet_index(j);
-      double h = theta[k + 2], kk = theta[k + 3];
-      const double emax = pb_.priors.eccentricity[static_cast<std::size_t>(j)].kind == EccentricityPriorKind::kCircular
-                              ? 0.0
-                              : std::clamp(std::min(pb_.priors.eccentricity[static_cast<std::size_t>(j)].max_ecc,
-                                                    pb_.priors.periastron_max_eccentricity(theta[k]) - 1e-9),
-                                           0.0, 1.0);
-      double e = h * h + kk * kk;
-      if (e >= emax && e > 0.0) {
-        const double lim = std::max(emax - 1e-9, 0.0);
-        penalty += 1e4 * (e - lim) * (e - lim) + 1e2 * (e - lim);
-        const double s = std::sqrt(lim / e);
-        h *= s;
-        kk *= s;
-        e = h * h + kk * kk;
-      }
-      const double P = theta[k], K = theta[k + 1], tc = theta[k + 4];
-      if (!(P > 0.0) || !std::isfinite(P) || !std::isfinite(K) || !std::isfinite(tc)) return -kInf;
-      const double w = (h == 0.0 && kk == 0.0) ? 0.0 : std::atan2(kk, h);
-      const double M0 = mean_anomaly_at_conjunction(e, w) - kTwoPi * tc / P;
-      const kernels::KeplerTerm term{kTwoPi / P, M0, K, e, w};
-      kernels::add_keplerians(t, n_, &term, 1, model_.data());
-    }
-    // Weights.
-    for (std::size_t i = 0; i < n_; ++i) {
-      const double s = pb_.data.uncertainty_m_s[i];
-      double j = 0.0;
-      if (L_.fit_jitter) j = theta[L_.jitter_index(pb_.data.instrument[i])];
-      if (!(j >= 0.0) || !std::isfinite(j)) return -kInf;
-      w_[i] = 1.0 / (s * s + j * j);
-    }
-    // Linear parameters by weighted least squares on y - planets - fixed linear terms.
-    if (!solve_linear(theta)) return -kInf;
+    eval_.assign(theta.begin(), theta.end());
+    const double penalty = model_.layout().fit_regularise(eval_, model_.priors());
     double lnl = 0.0;
-    for (std::size_t i = 0; i < n_; ++i) {
-      const double r = pb_.data.velocity_m_s[i] - model_[i] - linear_value(theta, i);
-      lnl += r * r * w_[i] - std::log(w_[i]);
+    for (const auto& term : model_.terms()) {
+      lnl += term->log_likelihood_profiled(eval_, free_linear_);
+      if (!std::isfinite(lnl)) break;
     }
-    lnl = -0.5 * (lnl + static_cast<double>(n_) * std::log(kTwoPi));
-    for (const auto& [j, term] : transit_terms_) {
-      const std::size_t k = L_.planet_index(j);
-      lnl += term->log_likelihood(theta[k], theta[k + 4], transit_jitter(theta, j));
-    }
+    for (std::size_t i = 0; i < theta.size(); ++i)
+      if (free_linear_[i]) theta[i] = eval_[i];
     if (!std::isfinite(lnl)) return -kInf;
     double value = lnl - penalty;
     if (use_prior_) {
-      const double lp = prior_density(theta);
+      const double lp = model_.layout().fit_log_prior(theta, model_.priors());
       if (!std::isfinite(lp)) return -kInf;
       value += lp;
     }
     return value;
   }
 
-  // Log prior density with the eccentricity taken at its (clamped) value and no
-  // ordering constraint (planets are sorted after the fit).
-  double prior_density(const std::vector<double>& theta) const {
-    double lp = 0.0;
-    for (std::size_t i = 0; i < theta.size(); ++i) {
-      if (is_hk(L_, i)) continue;
-      const Prior& p = pb_.priors.parameter[i];
-      if (p.kind == PriorKind::kFixed) continue;
-      double x = std::clamp(theta[i], p.lower(), p.upper());
-      lp += p.log_density(x);
-    }
-    for (int j = 0; j < L_.n_planets; ++j) {
-      const std::size_t k = L_.planet_index(j);
-      const auto& ep = pb_.priors.eccentricity[static_cast<std::size_t>(j)];
-      if (ep.kind == EccentricityPriorKind::kCircular) continue;
-      double h = theta[k + 2], kk = theta[k + 3];
-      const double e = h * h + kk * kk;
-      const double emax = std::min(ep.max_ecc, pb_.priors.periastron_max_eccentricity(theta[k]));
-      if (e >= emax && e > 0.0) {
-        const double s = std::sqrt(std::max(emax - 1e-9, 0.0) / e);
-        h *= s;
-        kk *= s;
-      }
-      lp += ep.log_density_hk(h, kk);
-    }
-    return lp;
-  }
-
   double transit_log_likelihood(const std::vector<double>& theta) const {
-    double s = 0.0;
-    for (const auto& [j, term] : transit_terms_) {
-      const std::size_t k = L_.planet_index(j);
-      s += term->log_likelihood(theta[k], theta[k + 4], transit_jitter(theta, j));
-    }
-    return s;
-  }
-  double transit_jitter(const std::vector<double>& theta, int planet) const {
-    const long i = L_.transit_jitter_index(planet);
-    return i >= 0 ? theta[static_cast<std::size_t>(i)] : 0.0;
+    return model_.transit_log_likelihood(theta);
   }
 
  private:
-  double linear_value(const std::vector<double>& theta, std::size_t i) const {
-    double v = theta[L_.offset_index(pb_.data.instrument[i])];
-    const double ti = pb_.data.time_days[i];
-    if (L_.trend_order() >= 1) v += theta[L_.trend_index(1)] * ti;
-    if (L_.trend_order() >= 2) v += theta[L_.trend_index(2)] * ti * ti;
-    return v;
-  }
-  double column(std::size_t param, std::size_t i) const {
-    for (int k = 0; k < L_.n_instruments; ++k)
-      if (param == L_.offset_index(k)) return pb_.data.instrument[i] == k ? 1.0 : 0.0;
-    const double ti = pb_.data.time_days[i];
-    if (L_.trend_order() >= 1 && param == L_.trend_index(1)) return ti;
-    return ti * ti;
-  }
-  bool solve_linear(std::vector<double>& theta) {
-    const std::size_t m = linear_.size();
-    if (m == 0) return true;
-    // Fixed linear parameters stay in the model; free ones are zeroed and solved for.
-    for (std::size_t c : linear_) theta[c] = 0.0;
-    Eigen::MatrixXd A = Eigen::MatrixXd::Zero(static_cast<Eigen::Index>(m), static_cast<Eigen::Index>(m));
-    Eigen::VectorXd b = Eigen::VectorXd::Zero(static_cast<Eigen::Index>(m));
-    std::vector<double> x(m);
-    for (std::size_t i = 0; i < n_; ++i) {
-      const double y = pb_.data.velocity_m_s[i] - model_[i] - linear_value(theta, i);
-      for (std::size_t a = 0; a < m; ++a) x[a] = column(linear_[a], i);
-      for (std::size_t a = 0; a < m; ++a) {
-        if (x[a] == 0.0) continue;
-        const double wa = w_[i] * x[a];
-        b(static_cast<Eigen::Index>(a)) += wa * y;
-        for (std::size_t c = 0; c < m; ++c) A(static_cast<Eigen::Index>(a), static_cast<Eigen::Index>(c)) += wa * x[c];
-      }
-    }
-    Eigen::LDLT<Eigen::MatrixXd> ldlt(A);
-    if (ldlt.info() != Eigen::Success || !(ldlt.vectorD().minCoeff() > 1e-14 * ldlt.vectorD().maxCoeff())) return false;
-    const Eigen::VectorXd sol = ldlt.solve(b);
-    for (std::size_t a = 0; a < m; ++a) {
-      if (!std::isfinite(sol(static_cast<Eigen::Index>(a)))) return false;
-      theta[linear_[a]] = sol(static_cast<Eigen::Index>(a));
-    }
-    return true;
-  }
-
-  const FitProblem& pb_;
-  ModelLayout L_;
+  PosteriorModel model_;
   bool use_prior_;
-  std::size_t n_;
-  std::vector<std::size_t> linear_, nonlinear_;
-  std::vector<std::pair<int, std::unique_ptr<TransitTimingLikelihood>>> transit_terms_;
-  std::vector<double> model_, scratch_, w_;
+  std::vector<bool> free_linear_;
+  std::vector<std::size_t> nonlinear_;
+  std::vector<double> eval_;
   int evaluations_ = 0;
 };
 
@@ -263,46 +127,6 @@ std::string result_text(nlopt::result r) {
   }
 }
 
-// Bounds of parameter i for a run starting at theta: the prior support, finite; t_conj
-// kept within one period of its start (the likelihood repeats every period).
-std::pair<double, double> bounds_for(const FitProblem& pb, const std::vector<double>& theta, std::size_t i) {
-  const ModelLayout& L = pb.layout;
-  const Prior& p = pb.priors.parameter[i];
-  double lo = p.lower(), hi = p.upper();
-  if (is_hk(L, i)) return {-1.0, 1.0};
-  if (i < static_cast<std::size_t>(5 * L.n_planets) && i % 5 == 4) {
-    const double P = theta[i - 4];
-    lo = std::max(lo, theta[i] - P);
-    hi = std::min(hi, theta[i] + P);
-  }
-  if (!std::isfinite(lo)) lo = p.kind == PriorKind::kNormal ? p.a - 20.0 * p.b : -1e12;
-  if (!std::isfinite(hi)) {
-    if (p.kind == PriorKind::kHalfNormal) hi = 8.0 * p.a;
-    else if (p.kind == PriorKind::kNormal) hi = p.a + 20.0 * p.b;
-    else hi = 1e12;
-  }
-  return {lo, hi};
-}
-
-double initial_step(const FitProblem& pb, const std::vector<double>& theta, std::size_t i, double width) {
-  const ModelLayout& L = pb.layout;
-  const double T = std::max(pb.data.baseline_days(), 1.0);
-  if (i < static_cast<std::size_t>(5 * L.n_planets)) {
-    const std::size_t slot = i % 5;
-    const double P = theta[i - slot];
-    switch (slot) {
-      case 0: return 0.1 * P * P / T;               // a tenth of a peak width
-      case 1: return std::max(0.1 * std::fabs(theta[i]), 0.2);
-      case 2:
-      case 3: return 0.1;
-      default: return 0.05 * P;
-    }
-  }
-  for (int j : L.transit_jitter_planets)
-    if (static_cast<long>(i) == L.transit_jitter_index(j)) return 0.3 * std::max(width / 8.0, 1e-6);
-  return std::max(0.1 * std::fabs(theta[i]), 0.2 * std::max(width * 1e-3, 0.1));
-}
-
 LocalRun optimize(Objective& obj, const FitProblem& pb, const FitOptions& opt, std::vector<double> theta,
                   const std::vector<std::size_t>& which, int max_eval) {
   LocalRun run;
@@ -315,13 +139,16 @@ LocalRun optimize(Objective& obj, const FitProblem& pb, const FitOptions& opt, s
     return run;
   }
   std::vector<double> lo(d), hi(d), x(d), step(d);
+  const double baseline = pb.data.baseline_days();
   for (std::size_t a = 0; a < d; ++a) {
     const std::size_t i = which[a];
-    auto [l, h] = bounds_for(pb, theta, i);
+    const ParameterBlock& block = obj.layout().block_at(i);
+    const int slot = static_cast<int>(i - block.first());
+    auto [l, h] = block.fit_bounds(slot, theta, pb.priors.parameter[i]);
     lo[a] = l;
     hi[a] = h;
     x[a] = std::clamp(theta[i], l, h);
-    step[a] = std::min(initial_step(pb, theta, i, h - l), 0.25 * (h - l));
+    step[a] = std::min(block.fit_step(slot, theta, baseline, h - l), 0.25 * (h - l));
     if (!(step[a] > 0.0)) step[a] = 1e-6;
   }
   struct Ctx {
@@ -493,6 +320,8 @@ std::string FitOptions::Validate() const {
 
 std::string SearchOptions::Validate() const {
   if (max_planets < 0) return fmt::format("max_planets = {}: must be >= 0", max_planets);
+  if (!(min_bic_improvement >= 0.0) || !std::isfinite(min_bic_improvement))
+    return fmt::format("min_bic_improvement = {}: must be >= 0", min_bic_improvement);
   if (!(fap_threshold > 0.0 && fap_threshold < 1.0))
     return fmt::format("fap_threshold = {}: must be in (0, 1)", fap_threshold);
   return fit.Validate();
@@ -520,15 +349,11 @@ struct Residuals {
 };
 
 Residuals residuals_of(const FitProblem& pb, const std::vector<double>& theta) {
-  KeplerianModel km(pb.data, pb.layout);
+  const KeplerianModel km(pb.data, pb.layout);
   Residuals out;
   out.r = km.residuals(theta);
-  out.sigma.resize(out.r.size());
-  for (std::size_t i = 0; i < out.r.size(); ++i) {
-    const double s = pb.data.uncertainty_m_s[i];
-    const double j = pb.layout.fit_jitter ? theta[pb.layout.jitter_index(pb.data.instrument[i])] : 0.0;
-    out.sigma[i] = std::sqrt(s * s + j * j);
-  }
+  out.sigma = km.variances(theta);
+  for (double& s : out.sigma) s = std::sqrt(s);
   return out;
 }
 
@@ -602,72 +427,196 @@ std::vector<double> refine_periods(const std::vector<double>& cands, double T, d
   return out;
 }
 
-void wrap_and_sort(const FitProblem& pb, std::vector<double>& theta) {
-  const ModelLayout& L = pb.layout;
+void wrap_and_sort(const FitProblem& pb, const ParameterLayout& PL, std::vector<double>& theta) {
   // Planets named by transit times keep their slot; the others are sorted by period
   // into the remaining slots.
+  const auto planets = PL.planets();
   std::vector<Planet> ps, free;
-  for (int j = 0; j < L.n_planets; ++j) {
-    ps.push_back(planet_from(theta, L, j));
-    if (!pb.priors.is_label_fixed(j)) free.push_back(ps.back());
+  for (const PlanetBlock* b : planets) {
+    ps.push_back(b->planet(theta));
+    if (!pb.priors.is_label_fixed(b->letter())) free.push_back(ps.back());
   }
   std::stable_sort(free.begin(), free.end(), [](const Planet& a, const Planet& b) { return a.period_days < b.period_days; });
-  for (int j = 0, f = 0; j < L.n_planets; ++j)
-    if (!pb.priors.is_label_fixed(j)) ps[static_cast<std::size_t>(j)] = free[static_cast<std::size_t>(f++)];
-  for (int j = 0; j < L.n_planets; ++j) {
-    Planet p = ps[static_cast<std::size_t>(j)];
-    const Prior& tp = pb.priors.parameter[L.planet_index(j) + 4];
+  for (std::size_t j = 0, f = 0; j < planets.size(); ++j)
+    if (!pb.priors.is_label_fixed(planets[j]->letter())) ps[j] = free[f++];
+  for (std::size_t j = 0; j < planets.size(); ++j) {
+    Planet p = ps[j];
+    const Prior& tp = pb.priors.parameter[planets[j]->index(PlanetBlock::kTConj)];
     const double mid = std::isfinite(tp.lower()) && std::isfinite(tp.upper()) ? 0.5 * (tp.lower() + tp.upper()) : 0.0;
     p.t_conj_days -= p.period_days * std::round((p.t_conj_days - mid) / p.period_days);
-    put_planet(theta, L, j, p);
+    planets[j]->put(theta, p);
   }
 }
 
-std::vector<double> initial_theta(const FitProblem& pb) {
-  const ModelLayout& L = pb.layout;
-  std::vector<double> th(L.n_params(), 0.0);
-  for (std::size_t i = 0; i < th.size(); ++i) {
-    const Prior& p = pb.priors.parameter[i];
-    if (p.kind == PriorKind::kFixed) th[i] = p.a;
-  }
-  if (L.fit_jitter) {
-    for (int k = 0; k < L.n_instruments; ++k) {
-      const Prior& p = pb.priors.parameter[L.jitter_index(k)];
-      if (p.kind != PriorKind::kFixed) th[L.jitter_index(k)] = std::clamp(1.0, p.lower(), std::isfinite(p.upper()) ? p.upper() : 1.0);
-    }
-  }
+std::vector<double> initial_theta(const FitProblem& pb, const ParameterLayout& PL) {
+  std::vector<double> th(PL.n_params(), 0.0);
+  for (const auto& b : PL.blocks())
+    for (int s = 0; s < b->size(); ++s) th[b->index(s)] = b->fit_start(s, pb.priors.parameter[b->index(s)]);
   return th;
 }
 
+int count_free(const ModelPriors& priors) {
+  int k = 0;
+  for (const Prior& p : priors.parameter)
+    if (p.kind != PriorKind::kFixed) ++k;
+  return k;
+}
+
 void finish_result(const FitProblem& pb, Objective& obj, FitResult& res, std::vector<double> theta) {
-  const ModelLayout& L = pb.layout;
-  wrap_and_sort(pb, theta);
+  wrap_and_sort(pb, obj.layout(), theta);
   Objective plain(pb, false);
   const double lnl = plain.evaluate(theta);  // also solves the linear parameters
   res.theta = theta;
   res.log_likelihood = lnl;
   res.log_likelihood_transits = plain.transit_log_likelihood(theta);
-  res.log_prior = pb.priors.log_density(theta, L.n_planets);
+  res.log_prior = obj.model().log_prior(theta);
   res.log_posterior = res.log_likelihood + res.log_prior;
-  KeplerianModel km(pb.data, L);
+  const KeplerianModel km(pb.data, pb.layout);
   res.chi2 = km.chi_square(theta);
   res.residuals_m_s = km.residuals(theta);
-  res.rms_m_s.assign(static_cast<std::size_t>(L.n_instruments), 0.0);
-  std::vector<std::size_t> cnt(static_cast<std::size_t>(L.n_instruments), 0);
+  const std::size_t ni = pb.data.n_instruments();
+  res.rms_m_s.assign(ni, 0.0);
+  std::vector<std::size_t> cnt(ni, 0);
   for (std::size_t i = 0; i < res.residuals_m_s.size(); ++i) {
     const auto k = static_cast<std::size_t>(pb.data.instrument[i]);
     res.rms_m_s[k] += res.residuals_m_s[i] * res.residuals_m_s[i];
     ++cnt[k];
   }
   for (std::size_t k = 0; k < cnt.size(); ++k) res.rms_m_s[k] = cnt[k] ? std::sqrt(res.rms_m_s[k] / static_cast<double>(cnt[k])) : kNaN;
-  int k = 0;
-  for (const Prior& p : pb.priors.parameter)
-    if (p.kind != PriorKind::kFixed) ++k;
+  const int k = count_free(pb.priors);
   res.n_free = k;
   res.n_points = pb.data.size() + obj.n_transit_points();
   const double n = static_cast<double>(res.n_points);
   res.bic = k * std::log(n) - 2.0 * lnl;
   res.aicc = 2.0 * k - 2.0 * lnl + (n - k - 1.0 > 0.0 ? 2.0 * k * (k + 1.0) / (n - k - 1.0) : kInf);
+}
+
+// The problem's input checks: enough data for the free parameters, starts of the right
+// size whose nonlinear parameters lie inside the priors.
+void check_problem(const FitProblem& pb, const FitOptions& opt, const Objective& obj) {
+  const ModelLayout& L = pb.layout;
+  const int k = count_free(pb.priors);
+  if (static_cast<int>(pb.data.size() + obj.n_transit_points()) <= k)
+    throw InputError(fmt::format("{}: {} data points are too few to fit {} free parameters ({} planet(s))",
+                                 pb.data.sources(), pb.data.size() + obj.n_transit_points(), k, L.n_planets));
+  for (std::size_t s = 0; s < opt.starts.size(); ++s) {
+    if (opt.starts[s].size() != obj.layout().n_params())
+      throw InputError(fmt::format("fit: start {} has {} values; the model has {} parameters", s + 1,
+                                   opt.starts[s].size(), obj.layout().n_params()));
+    std::vector<double> th = opt.starts[s];
+    // Linear parameters are profiled: only the others must lie inside the priors.
+    Objective tmp(pb, false);
+    tmp.evaluate(th);
+    require_in_support(pb.priors, L, pb.data.instrument_names, th, fmt::format("fit start {}", s + 1));
+  }
+}
+
+// Fits what is known first: the first n_known planets with the instruments, the trend
+// and the jitters, the model's other planets left out. Returns base with the result.
+std::vector<double> fit_known(const FitProblem& pb, const ParameterLayout& PL, const FitOptions& opt,
+                              std::vector<double> base, int n_known, FitResult& res) {
+  FitProblem sub = pb;
+  sub.layout.n_planets = n_known;
+  const ParameterLayout sub_layout = ParameterLayout::from(sub.layout, pb.data.instrument_names);
+  sub.priors = restrict_priors(PL, pb.priors, sub_layout);
+  std::vector<double> ts(sub_layout.n_params(), 0.0);
+  transfer_parameters(PL, base, sub_layout, ts);
+  Objective so(sub, opt.use_prior_density);
+  const LocalRun r = optimize(so, sub, opt, ts, so.nonlinear(), opt.max_evaluations);
+  res.evaluations += so.evaluations();
+  transfer_parameters(sub_layout, r.theta, PL, base);
+  return base;
+}
+
+// Seeds planet j (the planets after it left out) from candidate periods: the residual
+// periodogram's peaks and their aliases, each through the eccentric grid; each seed is
+// optimised alone (the other planets held). Returns the runs, best first.
+std::vector<LocalRun> seed_planet(const FitProblem& pb, Objective& obj, const FitOptions& opt,
+                                  const std::vector<double>& base, std::size_t j) {
+  const ParameterLayout& PL = obj.layout();
+  const auto planets = PL.planets();
+  // Residuals of the model with planets 0..j-1 (this layout, later planets K = 0).
+  std::vector<double> th = base;
+  for (std::size_t q = j; q < planets.size(); ++q) {
+    const Prior& pq = pb.priors.parameter[planets[q]->index(PlanetBlock::kPeriod)];
+    planets[q]->put(th, Planet{pq.lower() > 0 ? std::max(pq.lower(), 1.0) : 1.0, 0.0, 0.0, 0.0, 0.0});
+  }
+  obj.evaluate(th);  // profiles offsets and trend
+  const Residuals rs = residuals_of(pb, th);
+  const PlanetBlock& pj = *planets[j];
+  const Prior& pp = pb.priors.parameter[pj.index(PlanetBlock::kPeriod)];
+  double pmin = pp.lower(), pmax = pp.upper();
+  if (!std::isfinite(pmax) || !(pmin > 0.0)) {
+    pmin = std::max(pmin, pp.a * 0.9);
+    pmax = std::isfinite(pmax) ? pmax : pp.a * 1.1;
+  }
+  const bool fixed_period = pp.kind == PriorKind::kFixed;
+  std::vector<double> peaks = opt.seed_periods_days;
+  if (fixed_period) peaks = {pp.a};
+  if (peaks.empty()) peaks = scan_residuals(pb.data, rs, pmin, pmax, opt.oversample, opt.n_peaks).peak_periods;
+  const double T = std::max(pb.data.baseline_days(), 1.0);
+  const std::vector<double> cands = fixed_period ? std::vector<double>{pp.a} : candidate_periods(peaks, opt.add_aliases, pmin, pmax);
+  const std::vector<double> fine = fixed_period ? cands : refine_periods(cands, T, pmin, pmax);
+  std::vector<double> w(rs.sigma.size());
+  for (std::size_t i = 0; i < w.size(); ++i) w[i] = 1.0 / (rs.sigma[i] * rs.sigma[i]);
+  const EccentricityPrior& ep = pj.eccentricity_prior(pb.priors);
+  const bool circ = ep.kind == EccentricityPriorKind::kCircular;
+  const auto keep = static_cast<std::size_t>(2 * opt.joint_starts + 2);
+  // The grid re-solves offsets and trend on the residuals.
+  const std::vector<Seed> seeds =
+      grid_seeds(pb.data, rs.r, w, pb.layout, fine, circ ? 0.0 : ep.max_ecc, opt.eccentric_seeds && !circ, keep);
+  std::vector<std::size_t> new_only;  // planet j and everything that is not a planet
+  for (std::size_t i : obj.nonlinear()) {
+    const ParameterBlock& b = PL.block_at(i);
+    if (&b == &pj || b.kind() != BlockKind::kPlanet) new_only.push_back(i);
+  }
+  const Prior& kp = pb.priors.parameter[pj.index(PlanetBlock::kAmplitude)];
+  const Prior& tp = pb.priors.parameter[pj.index(PlanetBlock::kTConj)];
+  const double mid = std::isfinite(tp.lower()) && std::isfinite(tp.upper()) ? 0.5 * (tp.lower() + tp.upper()) : 0.0;
+  std::vector<LocalRun> stage1;
+  for (const Seed& s : seeds) {
+    std::vector<double> t0 = th;
+    Planet p = s.planet;
+    p.semi_amplitude_m_s = std::clamp(p.semi_amplitude_m_s, kp.lower(), std::isfinite(kp.upper()) ? kp.upper() : p.semi_amplitude_m_s);
+    if (circ) p.sqrt_e_cos_omega = p.sqrt_e_sin_omega = 0.0;
+    p.t_conj_days -= p.period_days * std::round((p.t_conj_days - mid) / p.period_days);
+    pj.put(t0, p);
+    stage1.push_back(optimize(obj, pb, opt, t0, new_only, std::max(100, opt.max_evaluations / 4)));
+  }
+  std::stable_sort(stage1.begin(), stage1.end(), [](const LocalRun& a, const LocalRun& b) { return a.value > b.value; });
+  return stage1;
+}
+
+// Without starts: the known planets first, then each remaining planet seeded in turn;
+// the best few seeds of the last planet refined jointly with everything, the best polished.
+std::vector<LocalRun> fit_from_seeds(const FitProblem& pb, Objective& obj, const FitOptions& opt, FitResult& res) {
+  const ParameterLayout& PL = obj.layout();
+  const auto planets = PL.planets();
+  const std::vector<std::size_t>& all = obj.nonlinear();
+  const int max_eval = opt.max_evaluations;
+  std::vector<LocalRun> runs;
+  std::vector<double> base = initial_theta(pb, PL);
+  const std::size_t n_known = std::min(opt.known_planets.size(), planets.size());
+  for (std::size_t j = 0; j < n_known; ++j) planets[j]->put(base, opt.known_planets[j]);
+  base = fit_known(pb, PL, opt, base, static_cast<int>(n_known), res);
+  if (n_known == planets.size()) runs.push_back(optimize(obj, pb, opt, base, all, max_eval));
+  for (std::size_t j = n_known; j < planets.size(); ++j) {
+    const std::vector<LocalRun> stage1 = seed_planet(pb, obj, opt, base, j);
+    if (stage1.empty()) break;
+    if (j + 1 < planets.size()) {
+      // More planets to seed: continue from the best so far.
+      base = optimize(obj, pb, opt, stage1[0].theta, all, max_eval).theta;
+      continue;
+    }
+    const std::size_t nj = std::min<std::size_t>(stage1.size(), static_cast<std::size_t>(opt.joint_starts));
+    for (std::size_t a = 0; a < nj; ++a) runs.push_back(optimize(obj, pb, opt, stage1[a].theta, all, max_eval));
+  }
+  if (!runs.empty()) {
+    std::stable_sort(runs.begin(), runs.end(), [](const LocalRun& a, const LocalRun& b) { return a.value > b.value; });
+    LocalRun polish = optimize(obj, pb, opt, runs[0].theta, all, max_eval);
+    if (polish.value >= runs[0].value) runs[0] = polish;
+  }
+  return runs;
 }
 
 }  // namespace
@@ -676,7 +625,7 @@ FitResult fit_map(const FitProblem& pb, const FitOptions& opt) {
   if (const std::string msg = opt.Validate(); !msg.empty()) throw InputError("fit options: " + msg);
   const ModelLayout& L = pb.layout;
   if (pb.priors.parameter.size() != L.n_params() ||
-      pb.priors.eccentricity.size() != static_cast<std::size_t>(L.n_planets))
+      pb.priors.eccentricity.size() < static_cast<std::size_t>(L.n_planets))
     throw InputError("fit: the priors do not match the model layout");
   FitResult res;
   res.layout = L;
@@ -684,132 +633,16 @@ FitResult fit_map(const FitProblem& pb, const FitOptions& opt) {
   res.names = L.names(pb.data.instrument_names);
   res.reference_epoch_bjd = pb.data.reference_epoch_bjd;
   Objective obj(pb, opt.use_prior_density);
-  {
-    int k = 0;
-    for (const Prior& p : pb.priors.parameter)
-      if (p.kind != PriorKind::kFixed) ++k;
-    if (static_cast<int>(pb.data.size() + obj.n_transit_points()) <= k)
-      throw InputError(fmt::format("{}: {} data points are too few to fit {} free parameters ({} planet(s))",
-                                   pb.data.sources(), pb.data.size() + obj.n_transit_points(), k, L.n_planets));
-  }
-  for (std::size_t s = 0; s < opt.starts.size(); ++s) {
-    if (opt.starts[s].size() != L.n_params())
-      throw InputError(fmt::format("fit: start {} has {} values; the model has {} parameters", s + 1,
-                                   opt.starts[s].size(), L.n_params()));
-    std::vector<double> th = opt.starts[s];
-    // Linear parameters are profiled: only the others must lie inside the priors.
-    Objective tmp(pb, false);
-    tmp.evaluate(th);
-    require_in_support(pb.priors, L, pb.data.instrument_names, th, fmt::format("fit start {}", s + 1));
-  }
-
-  const std::vector<std::size_t>& all = obj.nonlinear();
+  check_problem(pb, opt, obj);
   std::vector<LocalRun> runs;
-  const int max_eval = opt.max_evaluations;
   if (!opt.starts.empty()) {
     for (const auto& s : opt.starts) {
-      LocalRun r = optimize(obj, pb, opt, s, all, max_eval);
-      r = optimize(obj, pb, opt, r.theta, all, max_eval);  // a restart polishes BOBYQA's model
+      LocalRun r = optimize(obj, pb, opt, s, obj.nonlinear(), opt.max_evaluations);
+      r = optimize(obj, pb, opt, r.theta, obj.nonlinear(), opt.max_evaluations);  // a restart polishes BOBYQA's model
       runs.push_back(std::move(r));
     }
   } else {
-    std::vector<double> base = initial_theta(pb);
-    const int n_known = std::min(static_cast<int>(opt.known_planets.size()), L.n_planets);
-    for (int j = 0; j < n_known; ++j) put_planet(base, L, j, opt.known_planets[static_cast<std::size_t>(j)]);
-    std::vector<std::size_t> not_planets;
-    for (std::size_t i : all)
-      if (i >= static_cast<std::size_t>(5 * L.n_planets)) not_planets.push_back(i);
-    // Fit what is known first (jitters with the known planets).
-    {
-      FitProblem sub = pb;
-      sub.layout.n_planets = n_known;
-      // Build the sub-problem's theta: known planets + instruments + trend.
-      std::vector<double> ts;
-      for (int j = 0; j < n_known; ++j)
-        for (int q = 0; q < 5; ++q) ts.push_back(base[L.planet_index(j) + static_cast<std::size_t>(q)]);
-      for (std::size_t i = static_cast<std::size_t>(5 * L.n_planets); i < base.size(); ++i) ts.push_back(base[i]);
-      sub.priors.parameter.clear();
-      for (int j = 0; j < n_known; ++j)
-        for (int q = 0; q < 5; ++q) sub.priors.parameter.push_back(pb.priors.parameter[L.planet_index(j) + static_cast<std::size_t>(q)]);
-      for (std::size_t i = static_cast<std::size_t>(5 * L.n_planets); i < base.size(); ++i) sub.priors.parameter.push_back(pb.priors.parameter[i]);
-      sub.priors.eccentricity.assign(pb.priors.eccentricity.begin(), pb.priors.eccentricity.begin() + n_known);
-      Objective so(sub, opt.use_prior_density);
-      LocalRun r = optimize(so, sub, opt, ts, so.nonlinear(), max_eval);
-      res.evaluations += so.evaluations();
-      for (int j = 0; j < n_known; ++j)
-        for (int q = 0; q < 5; ++q) base[L.planet_index(j) + static_cast<std::size_t>(q)] = r.theta[static_cast<std::size_t>(5 * j + q)];
-      for (std::size_t i = static_cast<std::size_t>(5 * L.n_planets); i < base.size(); ++i)
-        base[i] = r.theta[i - static_cast<std::size_t>(5 * (L.n_planets - n_known))];
-      if (n_known == L.n_planets) runs.push_back(optimize(obj, pb, opt, base, all, max_eval));
-    }
-    // Seed the remaining planets one at a time.
-    for (int j = n_known; j < L.n_planets; ++j) {
-      // Residuals of the model with planets 0..j-1 (this layout, later planets K = 0).
-      std::vector<double> th = base;
-      for (int q = j; q < L.n_planets; ++q) {
-        const std::size_t k = L.planet_index(q);
-        th[k] = pb.priors.parameter[k].lower() > 0 ? std::max(pb.priors.parameter[k].lower(), 1.0) : 1.0;
-        th[k + 1] = 0.0;
-        th[k + 2] = th[k + 3] = 0.0;
-        th[k + 4] = 0.0;
-      }
-      obj.evaluate(th);  // profiles offsets and trend
-      const Residuals rs = residuals_of(pb, th);
-      const std::size_t kj = L.planet_index(j);
-      const Prior& pp = pb.priors.parameter[kj];
-      double pmin = pp.lower(), pmax = pp.upper();
-      if (!std::isfinite(pmax) || !(pmin > 0.0)) {
-        const double c = pp.kind == PriorKind::kFixed ? pp.a : pp.a;
-        pmin = std::max(pmin, c * 0.9);
-        pmax = std::isfinite(pmax) ? pmax : c * 1.1;
-      }
-      std::vector<double> peaks = opt.seed_periods_days;
-      if (pp.kind == PriorKind::kFixed) peaks = {pp.a};
-      if (peaks.empty()) peaks = scan_residuals(pb.data, rs, pmin, pmax, opt.oversample, opt.n_peaks).peak_periods;
-      const double T = std::max(pb.data.baseline_days(), 1.0);
-      std::vector<double> cands = candidate_periods(peaks, opt.add_aliases, pmin, pmax);
-      if (pp.kind == PriorKind::kFixed) cands = {pp.a};
-      const std::vector<double> fine = pp.kind == PriorKind::kFixed ? cands : refine_periods(cands, T, pmin, pmax);
-      std::vector<double> w(rs.sigma.size());
-      for (std::size_t i = 0; i < w.size(); ++i) w[i] = 1.0 / (rs.sigma[i] * rs.sigma[i]);
-      const auto& ep = pb.priors.eccentricity[static_cast<std::size_t>(j)];
-      const bool circ = ep.kind == EccentricityPriorKind::kCircular;
-      // Residuals with the linear terms added back: the grid re-solves offsets and trend.
-      std::vector<double> rr = rs.r;
-      const std::size_t keep = static_cast<std::size_t>(2 * opt.joint_starts + 2);
-      std::vector<Seed> seeds = grid_seeds(pb.data, rr, w, L, fine, circ ? 0.0 : ep.max_ecc, opt.eccentric_seeds && !circ, keep);
-      // Stage 1: the new planet alone (with jitters), from each seed.
-      std::vector<std::size_t> new_only;
-      for (std::size_t i : all)
-        if ((i >= kj && i < kj + 5) || i >= static_cast<std::size_t>(5 * L.n_planets)) new_only.push_back(i);
-      std::vector<LocalRun> stage1;
-      for (const Seed& s : seeds) {
-        std::vector<double> t0 = th;
-        Planet p = s.planet;
-        const Prior& kp = pb.priors.parameter[kj + 1];
-        p.semi_amplitude_m_s = std::clamp(p.semi_amplitude_m_s, kp.lower(), std::isfinite(kp.upper()) ? kp.upper() : p.semi_amplitude_m_s);
-        if (circ) p.sqrt_e_cos_omega = p.sqrt_e_sin_omega = 0.0;
-        const Prior& tp = pb.priors.parameter[kj + 4];
-        const double mid = std::isfinite(tp.lower()) && std::isfinite(tp.upper()) ? 0.5 * (tp.lower() + tp.upper()) : 0.0;
-        p.t_conj_days -= p.period_days * std::round((p.t_conj_days - mid) / p.period_days);
-        put_planet(t0, L, j, p);
-        stage1.push_back(optimize(obj, pb, opt, t0, new_only, std::max(100, max_eval / 4)));
-      }
-      std::stable_sort(stage1.begin(), stage1.end(), [](const LocalRun& a, const LocalRun& b) { return a.value > b.value; });
-      if (stage1.empty()) break;
-      if (j + 1 < L.n_planets) {
-        // More planets to seed: continue from the best so far.
-        base = optimize(obj, pb, opt, stage1[0].theta, all, max_eval).theta;
-        continue;
-      }
-      const std::size_t nj = std::min<std::size_t>(stage1.size(), static_cast<std::size_t>(opt.joint_starts));
-      for (std::size_t a = 0; a < nj; ++a) runs.push_back(optimize(obj, pb, opt, stage1[a].theta, all, max_eval));
-    }
-    if (!runs.empty()) {
-      std::stable_sort(runs.begin(), runs.end(), [](const LocalRun& a, const LocalRun& b) { return a.value > b.value; });
-      LocalRun polish = optimize(obj, pb, opt, runs[0].theta, all, max_eval);
-      if (polish.value >= runs[0].value) runs[0] = polish;
-    }
+    runs = fit_from_seeds(pb, obj, opt, res);
   }
   res.evaluations += obj.evaluations();
   res.starts_tried = static_cast<int>(runs.size());
@@ -838,10 +671,11 @@ FitResult fit_map(const FitProblem& pb, const FitOptions& opt) {
 
 std::vector<PlanetSummary> derive_planets(const FitResult& fit, std::optional<double> star_mass_msun) {
   std::vector<PlanetSummary> out;
-  for (int j = 0; j < fit.layout.n_planets; ++j) {
-    const Planet p = planet_from(fit.theta, fit.layout, j);
+  const ParameterLayout PL = ParameterLayout::from(fit.layout, fit.instrument_names);
+  for (const PlanetBlock* b : PL.planets()) {
+    const Planet p = b->planet(fit.theta);
     PlanetSummary s;
-    s.label = planet_label(j);
+    s.label = b->label();
     s.period_d = p.period_days;
     s.K_ms = p.semi_amplitude_m_s;
     s.ecc = p.ecc();
@@ -909,11 +743,13 @@ ModelPriors problem_priors(const SearchProblem& sp, const ModelLayout& layout) {
 
 std::vector<SignalHint> search_signals(const SearchResult& result) {
   std::vector<SignalHint> out;
-  for (const FitResult& f : result.fits)
-    for (int j = 0; j < f.layout.n_planets; ++j) {
-      const Planet p = planet_from(f.theta, f.layout, j);
+  for (const FitResult& f : result.fits) {
+    const ParameterLayout blocks = f.parameters();
+    for (const PlanetBlock* b : blocks.planets()) {
+      const Planet p = b->planet(f.theta);
       out.push_back({p.period_days, p.semi_amplitude_m_s, p.t_conj_days});
     }
+  }
   if (std::isfinite(result.final_peak_period_days)) out.push_back({result.final_peak_period_days});
   return out;
 }
@@ -927,6 +763,46 @@ FitProblem make_fit_problem(const SearchProblem& sp, int n_planets) {
   return pb;
 }
 
+namespace {
+
+// BIC of the velocities alone (a transit-time term is in some steps' likelihood and not
+// in others, so the steps are compared on the data they all explain).
+double velocity_bic(const FitResult& f, std::size_t n_velocities) {
+  return f.n_free * std::log(static_cast<double>(n_velocities)) - 2.0 * (f.log_likelihood - f.log_likelihood_transits);
+}
+
+// The fitted planet whose window-function alias (|f_j +- f_w|, f_w one sidereal day, one
+// solar day, one year) lies within 1/baseline of the frequency 1/P; -1 when none.
+// Planets named by transit times are left out: their times decide their period.
+int alias_parent(const FitResult& prev, const ModelPriors& priors, double period_days, double baseline_days) {
+  const double f = 1.0 / period_days, tol = 1.0 / std::max(baseline_days, 1.0);
+  const ParameterLayout blocks = prev.parameters();
+  const auto planets = blocks.planets();
+  for (std::size_t j = 0; j < planets.size(); ++j) {
+    if (priors.is_label_fixed(planets[j]->letter())) continue;
+    const double fj = 1.0 / planets[j]->period(prev.theta);
+    for (double fw : {kSiderealDayPerDay, 1.0, 1.0 / kYearDays})
+      if (std::fabs(f - (fj + fw)) < tol || std::fabs(f - std::fabs(fj - fw)) < tol) return static_cast<int>(j);
+  }
+  return -1;
+}
+
+// The (k-1)-planet model with planet j moved to the alias at `period_days`: the search
+// may have taken the wrong alias of a signal, leaving the right one in the residuals.
+FitResult alias_alternative(const SearchProblem& sp, const FitOptions& fo, const FitResult& prev, int j,
+                            double period_days) {
+  FitOptions f = fo;
+  const ParameterLayout blocks = prev.parameters();
+  const auto planets = blocks.planets();
+  for (std::size_t q = 0; q < planets.size(); ++q)
+    if (static_cast<int>(q) != j) f.known_planets.push_back(planets[q]->planet(prev.theta));
+  f.seed_periods_days = {period_days};
+  f.add_aliases = false;
+  return fit_map(make_fit_problem(sp, prev.layout.n_planets), f);
+}
+
+}  // namespace
+
 SearchResult search_planets(const SearchProblem& sp, const SearchOptions& opt) {
   if (const std::string msg = opt.Validate(); !msg.empty()) throw InputError("search options: " + msg);
   SearchResult out;
@@ -934,23 +810,22 @@ SearchResult search_planets(const SearchProblem& sp, const SearchOptions& opt) {
   fo.starts.clear();
   fo.known_planets.clear();
   fo.seed_periods_days.clear();
-  FitProblem pb0 = make_fit_problem(sp, 0);
-  FitResult fit = fit_map(pb0, fo);
-  if (!fit.success()) {
-    out.message = "Planet search stopped: the fit without planets failed: " + fit.message;
-    out.fits.push_back(fit);
-    out.steps.push_back({0, fit.log_likelihood, fit.n_free, fit.bic, fit.aicc, kNaN, kNaN});
-    return out;
-  }
+  const FitResult fit = fit_map(make_fit_problem(sp, 0), fo);
   out.fits.push_back(fit);
   out.steps.push_back({0, fit.log_likelihood, fit.n_free, fit.bic, fit.aicc, kNaN, kNaN});
+  if (!fit.success()) {
+    out.message = "Planet search stopped: the fit without planets failed: " + fit.message;
+    return out;
+  }
   const PeriodRange range = default_period_range(sp.data, sp.search);
+  const std::size_t n_v = sp.data.size();
   out.message = "Planet search: ";
+  bool swapped = false;  // one alias swap per step
   for (int k = 1; k <= opt.max_planets; ++k) {
     const FitResult& prev = out.fits.back();
-    FitProblem prev_pb = make_fit_problem(sp, k - 1);
-    const Residuals rs = residuals_of(prev_pb, prev.theta);
-    const ResidualScan sc = scan_residuals(sp.data, rs, range.min_days, range.max_days, fo.oversample, fo.n_peaks);
+    const FitProblem prev_pb = make_fit_problem(sp, k - 1);
+    const ResidualScan sc = scan_residuals(sp.data, residuals_of(prev_pb, prev.theta), range.min_days, range.max_days,
+                                           fo.oversample, fo.n_peaks);
     out.final_peak_fap = sc.best_fap;
     out.final_peak_period_days = sc.peak_periods.empty() ? kNaN : sc.peak_periods[0];
     if (sc.peak_periods.empty() || !(sc.best_fap < opt.fap_threshold)) {
@@ -958,17 +833,43 @@ SearchResult search_planets(const SearchProblem& sp, const SearchOptions& opt) {
                                  k - 1, out.final_peak_period_days, sc.best_fap, opt.fap_threshold);
       break;
     }
-    FitProblem pb = make_fit_problem(sp, k);
+    if (const int j = alias_parent(prev, prev_pb.priors, sc.peak_periods[0], sp.data.baseline_days());
+        j >= 0 && !swapped && k > 1) {
+      swapped = true;
+      FitResult alt = alias_alternative(sp, fo, prev, j, sc.peak_periods[0]);
+      if (alt.success() && velocity_bic(alt, n_v) < velocity_bic(prev, n_v)) {
+        out.message += fmt::format("planet {} moved to its alias at {:.5g} d (BIC lower by {:.1f}); ", planet_label(j),
+                                   sc.peak_periods[0], velocity_bic(prev, n_v) - velocity_bic(alt, n_v));
+        out.fits.back() = std::move(alt);
+        SearchStep& st = out.steps.back();
+        st.log_likelihood = out.fits.back().log_likelihood;
+        st.bic = out.fits.back().bic;
+        st.aicc = out.fits.back().aicc;
+        --k;  // scan the new residuals for the same step
+        continue;
+      }
+    }
     FitOptions f = fo;
-    for (int j = 0; j < k - 1; ++j) f.known_planets.push_back(planet_from(prev.theta, prev.layout, j));
+    const ParameterLayout prev_blocks = prev.parameters();
+    for (const PlanetBlock* b : prev_blocks.planets()) f.known_planets.push_back(b->planet(prev.theta));
     f.seed_periods_days = sc.peak_periods;
-    FitResult fk = fit_map(pb, f);
+    FitResult fk = fit_map(make_fit_problem(sp, k), f);
     if (!fk.success()) {
       out.message += fmt::format("stopped: the {}-planet fit failed ({}).", k, fk.message);
       break;
     }
-    out.fits.push_back(fk);
-    out.steps.push_back({k, fk.log_likelihood, fk.n_free, fk.bic, fk.aicc, sc.best_fap, sc.peak_periods[0]});
+    const double gain = velocity_bic(prev, n_v) - velocity_bic(fk, n_v);
+    if (gain < opt.min_bic_improvement) {
+      out.message += fmt::format(
+          "stopped at {} planet(s): a planet at the residual peak (P = {:.5g} d, FAP {:.3g}) improves the velocities' "
+          "BIC by {:.1f} < {:g}.",
+          k - 1, sc.peak_periods[0], sc.best_fap, gain, opt.min_bic_improvement);
+      break;
+    }
+    swapped = false;
+    out.fits.push_back(std::move(fk));
+    const FitResult& added = out.fits.back();
+    out.steps.push_back({k, added.log_likelihood, added.n_free, added.bic, added.aicc, sc.best_fap, sc.peak_periods[0]});
     out.final_peak_fap = kNaN;
     out.final_peak_period_days = kNaN;
     if (k == opt.max_planets) out.message += fmt::format("reached max_planets = {}.", k);
@@ -993,6 +894,7 @@ SearchOptions search_options(const Project& project) {
   SearchOptions so;
   so.max_planets = project.search.max_planets;
   so.fap_threshold = project.search.fap_threshold;
+  so.min_bic_improvement = project.search.min_bic_improvement;
   return so;
 }
 

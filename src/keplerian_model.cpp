@@ -91,29 +91,30 @@ Trend parse_trend(const std::string& text, const std::string& where) {
                                where, text));
 }
 
-std::size_t ModelLayout::n_params() const {
-  return static_cast<std::size_t>(kPlanetParams * n_planets + per_instrument() * n_instruments +
-                                  trend_order()) +
-         transit_jitter_planets.size();
-}
-long ModelLayout::transit_jitter_index(int planet) const {
-  const std::size_t base = static_cast<std::size_t>(kPlanetParams * n_planets + per_instrument() * n_instruments +
-                                                    trend_order());
-  for (std::size_t q = 0; q < transit_jitter_planets.size(); ++q)
-    if (transit_jitter_planets[q] == planet) return static_cast<long>(base + q);
-  return -1;
+std::size_t ModelLayout::n_params() const { return ParameterLayout::from(*this, {}).n_params(); }
+
+std::size_t ModelLayout::planet_index(int planet) const {
+  const ParameterLayout p = ParameterLayout::from(*this, {});
+  return p.planet(planet).index(PlanetBlock::kPeriod);
 }
 std::size_t ModelLayout::offset_index(int instrument) const {
-  return static_cast<std::size_t>(kPlanetParams * n_planets + per_instrument() * instrument);
+  const ParameterLayout p = ParameterLayout::from(*this, {});
+  return p.instruments().at(static_cast<std::size_t>(instrument))->offset_index();
 }
 std::size_t ModelLayout::jitter_index(int instrument) const {
   assert(fit_jitter);
-  return offset_index(instrument) + 1;
+  const ParameterLayout p = ParameterLayout::from(*this, {});
+  return p.instruments().at(static_cast<std::size_t>(instrument))->jitter_index();
 }
 std::size_t ModelLayout::trend_index(int power) const {
   assert(power >= 1 && power <= trend_order());
-  return static_cast<std::size_t>(kPlanetParams * n_planets + per_instrument() * n_instruments +
-                                  power - 1);
+  const ParameterLayout p = ParameterLayout::from(*this, {});
+  return p.trend()->coefficient_index(power);
+}
+long ModelLayout::transit_jitter_index(int planet) const {
+  const ParameterLayout p = ParameterLayout::from(*this, {});
+  const TransitJitterBlock* b = p.transit_jitter(planet_label(planet));
+  return b != nullptr ? static_cast<long>(b->index(0)) : -1;
 }
 
 std::string planet_label(int index) {
@@ -121,53 +122,56 @@ std::string planet_label(int index) {
 }
 
 std::vector<std::string> ModelLayout::names(const std::vector<std::string>& instrument_names) const {
-  std::vector<std::string> out;
-  for (int j = 0; j < n_planets; ++j) {
-    const std::string l = planet_label(j);
-    for (const char* n : {"period_d", "K_ms", "secosw", "sesinw", "t_conj_d"}) out.push_back(l + "." + n);
-  }
-  for (int i = 0; i < n_instruments; ++i) {
-    const std::string& in = instrument_names.at(static_cast<std::size_t>(i));
-    out.push_back(in + ".offset_ms");
-    if (fit_jitter) out.push_back(in + ".jitter_ms");
-  }
-  if (trend_order() >= 1) out.push_back("trend.c1_ms_per_d");
-  if (trend_order() >= 2) out.push_back("trend.c2_ms_per_d2");
-  for (int j : transit_jitter_planets) out.push_back(planet_label(j) + ".transit_jitter_d");
-  return out;
+  return ParameterLayout::from(*this, instrument_names).names();
 }
 
-std::vector<std::string> ModelLayout::units() const {
-  std::vector<std::string> out;
-  for (int j = 0; j < n_planets; ++j) {
-    for (const char* u : {"d", "m/s", "1", "1", "d (BJD_TDB - reference epoch)"}) out.push_back(u);
-  }
-  for (int i = 0; i < n_instruments; ++i) {
-    out.push_back("m/s");
-    if (fit_jitter) out.push_back("m/s");
-  }
-  if (trend_order() >= 1) out.push_back("m/s/d");
-  if (trend_order() >= 2) out.push_back("m/s/d^2");
-  for (std::size_t q = 0; q < transit_jitter_planets.size(); ++q) out.push_back("d");
-  return out;
-}
+std::vector<std::string> ModelLayout::units() const { return ParameterLayout::from(*this, {}).units(); }
 
 Planet planet_from(std::span<const double> theta, const ModelLayout& layout, int planet) {
-  const std::size_t k = layout.planet_index(planet);
-  return Planet{theta[k], theta[k + 1], theta[k + 2], theta[k + 3], theta[k + 4]};
+  const ParameterLayout p = ParameterLayout::from(layout, {});
+  return p.planet(planet).planet(theta);
 }
 
 void put_planet(std::span<double> theta, const ModelLayout& layout, int planet, const Planet& p) {
-  const std::size_t k = layout.planet_index(planet);
-  theta[k] = p.period_days;
-  theta[k + 1] = p.semi_amplitude_m_s;
-  theta[k + 2] = p.sqrt_e_cos_omega;
-  theta[k + 3] = p.sqrt_e_sin_omega;
-  theta[k + 4] = p.t_conj_days;
+  const ParameterLayout blocks = ParameterLayout::from(layout, {});
+  blocks.planet(planet).put(theta, p);
 }
 
+struct KeplerianModel::Blocks {
+  ParameterLayout parameters;
+  std::vector<const PlanetBlock*> planets;
+  std::vector<const InstrumentBlock*> instruments;  // by instrument index
+  const TrendBlock* trend = nullptr;
+  explicit Blocks(ParameterLayout p)
+      : parameters(std::move(p)), planets(parameters.planets()), instruments(parameters.instruments()),
+        trend(parameters.trend()) {}
+  double c1(std::span<const double> theta) const {
+    return trend != nullptr && trend->order() >= 1 ? trend->coefficient(theta, 1) : 0.0;
+  }
+  double c2(std::span<const double> theta) const {
+    return trend != nullptr && trend->order() >= 2 ? trend->coefficient(theta, 2) : 0.0;
+  }
+};
+
+namespace {
+// The configuration a layout of blocks corresponds to (for KeplerianModel::layout()).
+ModelLayout layout_of(const ParameterLayout& p) {
+  ModelLayout L;
+  L.n_planets = static_cast<int>(p.planets().size());
+  L.n_instruments = static_cast<int>(p.instruments().size());
+  L.fit_jitter = !p.instruments().empty() && p.instruments().front()->has_jitter();
+  L.trend = p.trend() == nullptr ? Trend::kNone : static_cast<Trend>(p.trend()->order());
+  for (const auto& b : p.blocks())
+    if (b->kind() == BlockKind::kTransitJitter) L.transit_jitter_planets.push_back(b->label()[0] - 'b');
+  return L;
+}
+}  // namespace
+
 KeplerianModel::KeplerianModel(VelocityData data, ModelLayout layout)
-    : data_(std::move(data)), layout_(layout) {
+    : KeplerianModel(data, ParameterLayout::from(layout, data.instrument_names)) {}
+
+KeplerianModel::KeplerianModel(VelocityData data, ParameterLayout parameters)
+    : data_(std::move(data)), layout_(layout_of(parameters)), blocks_(std::make_unique<Blocks>(std::move(parameters))) {
   assert(static_cast<std::size_t>(layout_.n_instruments) == data_.n_instruments());
   // The likelihood is a sum over points, so it may visit them grouped by instrument:
   // each block then has one offset and one jitter, and the kernel sees contiguous arrays.
@@ -187,21 +191,29 @@ KeplerianModel::KeplerianModel(VelocityData data, ModelLayout layout)
   }
 }
 
+KeplerianModel::~KeplerianModel() = default;
+KeplerianModel::KeplerianModel(KeplerianModel&&) noexcept = default;
+KeplerianModel::KeplerianModel(const KeplerianModel& o)
+    : data_(o.data_), layout_(o.layout_), blocks_(std::make_unique<Blocks>(o.blocks_->parameters)),
+      block_time_days_(o.block_time_days_), block_velocity_m_s_(o.block_velocity_m_s_),
+      block_variance_m2_s2_(o.block_variance_m2_s2_), block_start_(o.block_start_) {}
+
+const ParameterLayout& KeplerianModel::parameters() const { return blocks_->parameters; }
+
 namespace {
 constexpr double kNegInf = -std::numeric_limits<double>::infinity();
 constexpr double kLn2Pi = 1.83787706640934548356;  // ln(2 pi)
 
-bool physical(std::span<const double> theta, const ModelLayout& L) {
-  for (int j = 0; j < L.n_planets; ++j) {
-    const Planet p = planet_from(theta, L, j);
+bool physical(std::span<const double> theta, const std::vector<const PlanetBlock*>& planets,
+              const std::vector<const InstrumentBlock*>& instruments) {
+  for (const PlanetBlock* b : planets) {
+    const Planet p = b->planet(theta);
     if (!(p.period_days > 0.0) || !(p.ecc() < 1.0) || !std::isfinite(p.semi_amplitude_m_s) ||
         !std::isfinite(p.t_conj_days))
       return false;
   }
-  if (L.fit_jitter) {
-    for (int i = 0; i < L.n_instruments; ++i)
-      if (!(theta[L.jitter_index(i)] >= 0.0)) return false;
-  }
+  for (const InstrumentBlock* b : instruments)
+    if (b->has_jitter() && !(b->jitter(theta) >= 0.0)) return false;
   for (double v : theta)
     if (!std::isfinite(v)) return false;
   return true;
@@ -229,19 +241,21 @@ void KeplerianModel::planets_velocity(std::span<const double> theta, std::span<c
                                       std::span<double> out) const {
   std::fill(out.begin(), out.end(), 0.0);
   std::vector<kernels::KeplerTerm> terms;
-  for (int j = 0; j < layout_.n_planets; ++j) terms.push_back(kepler_term(planet_from(theta, layout_, j)));
-  kernels::add_keplerians(t.data(), t.size(), terms.data(), layout_.n_planets, out.data());
+  for (const PlanetBlock* b : blocks_->planets) terms.push_back(kepler_term(b->planet(theta)));
+  kernels::add_keplerians(t.data(), t.size(), terms.data(), static_cast<int>(terms.size()), out.data());
 }
 
 std::vector<double> KeplerianModel::predict(std::span<const double> theta) const {
   const std::size_t n = data_.size();
   std::vector<double> out(n);
   planets_velocity(theta, data_.time_days, out);
+  const double c1 = blocks_->c1(theta), c2 = blocks_->c2(theta);
+  const int order = blocks_->trend != nullptr ? blocks_->trend->order() : 0;
   for (std::size_t i = 0; i < n; ++i) {
-    out[i] += theta[layout_.offset_index(data_.instrument[i])];
+    out[i] += blocks_->instruments[static_cast<std::size_t>(data_.instrument[i])]->offset(theta);
     const double t = data_.time_days[i];
-    if (layout_.trend_order() >= 1) out[i] += theta[layout_.trend_index(1)] * t;
-    if (layout_.trend_order() >= 2) out[i] += theta[layout_.trend_index(2)] * t * t;
+    if (order >= 1) out[i] += c1 * t;
+    if (order >= 2) out[i] += c2 * t * t;
   }
   return out;
 }
@@ -252,13 +266,22 @@ std::vector<double> KeplerianModel::residuals(std::span<const double> theta) con
   return m;
 }
 
+std::vector<double> KeplerianModel::variances(std::span<const double> theta) const {
+  std::vector<double> v(data_.size());
+  for (std::size_t i = 0; i < v.size(); ++i) {
+    const double j = blocks_->instruments[static_cast<std::size_t>(data_.instrument[i])]->jitter(theta);
+    v[i] = data_.uncertainty_m_s[i] * data_.uncertainty_m_s[i] + j * j;
+  }
+  return v;
+}
+
 double KeplerianModel::chi_square(std::span<const double> theta) const {
   std::vector<double> r = residuals(theta);
   double chi2 = 0.0;
   for (std::size_t i = 0; i < r.size(); ++i) {
     double var = data_.uncertainty_m_s[i] * data_.uncertainty_m_s[i];
     if (layout_.fit_jitter) {
-      const double j = theta[layout_.jitter_index(data_.instrument[i])];
+      const double j = blocks_->instruments[static_cast<std::size_t>(data_.instrument[i])]->jitter(theta);
       var += j * j;
     }
     chi2 += r[i] * r[i] / var;
@@ -285,20 +308,21 @@ double KeplerianModel::log_likelihood(std::span<const double> theta) const {
 double KeplerianModel::log_likelihood_offsets_integrated(std::span<const double> theta,
                                                          std::span<const IntegratedOffset> integrated,
                                                          std::vector<OffsetConditional>* conditionals) const {
-  assert(theta.size() == layout_.n_params());
+  assert(theta.size() == blocks_->parameters.n_params());
   if (conditionals != nullptr) conditionals->clear();
-  if (!physical(theta, layout_)) return kNegInf;
+  if (!physical(theta, blocks_->planets, blocks_->instruments)) return kNegInf;
   // Planet terms on the stack for the usual handful of planets, on the heap beyond.
+  const int n_planets = static_cast<int>(blocks_->planets.size());
   kernels::KeplerTerm stack_terms[kMaxStackPlanets];
   std::vector<kernels::KeplerTerm> heap_terms;
   kernels::KeplerTerm* terms = stack_terms;
-  if (layout_.n_planets > kMaxStackPlanets) {
-    heap_terms.resize(static_cast<std::size_t>(layout_.n_planets));
+  if (n_planets > kMaxStackPlanets) {
+    heap_terms.resize(static_cast<std::size_t>(n_planets));
     terms = heap_terms.data();
   }
-  for (int k = 0; k < layout_.n_planets; ++k) terms[k] = kepler_term(planet_from(theta, layout_, k));
-  const double c1 = layout_.trend_order() >= 1 ? theta[layout_.trend_index(1)] : 0.0;
-  const double c2 = layout_.trend_order() >= 2 ? theta[layout_.trend_index(2)] : 0.0;
+  for (int k = 0; k < n_planets; ++k) terms[k] = kepler_term(blocks_->planets[static_cast<std::size_t>(k)]->planet(theta));
+  const double c1 = blocks_->c1(theta);
+  const double c2 = blocks_->c2(theta);
 
   std::vector<double>& scratch = tl_scratch;
   if (scratch.size() < data_.size()) scratch.resize(data_.size());
@@ -306,15 +330,16 @@ double KeplerianModel::log_likelihood_offsets_integrated(std::span<const double>
   for (int i = 0; i < layout_.n_instruments; ++i) {
     const std::size_t b = block_start_[static_cast<std::size_t>(i)];
     const std::size_t n = block_start_[static_cast<std::size_t>(i) + 1] - b;
-    const double jitter = layout_.fit_jitter ? theta[layout_.jitter_index(i)] : 0.0;
+    const InstrumentBlock& inst = *blocks_->instruments[static_cast<std::size_t>(i)];
+    const double jitter = inst.jitter(theta);
     const IntegratedOffset* io = nullptr;
     for (const auto& x : integrated)
       if (x.instrument == i) io = &x;
     if (io == nullptr) {
       if (n == 0) continue;
       lnl += kernels::block_lnlike(block_time_days_.data() + b, block_velocity_m_s_.data() + b,
-                                   block_variance_m2_s2_.data() + b, n, terms, layout_.n_planets,
-                                   theta[layout_.offset_index(i)], jitter * jitter, c1, c2, scratch.data());
+                                   block_variance_m2_s2_.data() + b, n, terms, n_planets,
+                                   inst.offset(theta), jitter * jitter, c1, c2, scratch.data());
       continue;
     }
     const double width = io->upper_m_s - io->lower_m_s;
@@ -325,7 +350,7 @@ double KeplerianModel::log_likelihood_offsets_integrated(std::span<const double>
     }
     const kernels::OffsetFreeFit f =
         kernels::block_offset_fit(block_time_days_.data() + b, block_velocity_m_s_.data() + b,
-                                  block_variance_m2_s2_.data() + b, n, terms, layout_.n_planets, jitter * jitter,
+                                  block_variance_m2_s2_.data() + b, n, terms, n_planets, jitter * jitter,
                                   c1, c2, scratch.data());
     const double sd = 1.0 / std::sqrt(f.sum_inverse_variance);
     lnl += -0.5 * (f.chi2_min + f.log_det + static_cast<double>(n - 1) * kLn2Pi) + std::log(sd) +
@@ -336,18 +361,20 @@ double KeplerianModel::log_likelihood_offsets_integrated(std::span<const double>
 }
 
 double KeplerianModel::log_likelihood_reference(std::span<const double> theta) const {
-  if (!physical(theta, layout_)) return kNegInf;
+  if (!physical(theta, blocks_->planets, blocks_->instruments)) return kNegInf;
   double lnl = 0.0;
+  const int order = blocks_->trend != nullptr ? blocks_->trend->order() : 0;
   for (std::size_t i = 0; i < data_.size(); ++i) {
     const double t = data_.time_days[i];
-    double m = theta[layout_.offset_index(data_.instrument[i])];
-    if (layout_.trend_order() >= 1) m += theta[layout_.trend_index(1)] * t;
-    if (layout_.trend_order() >= 2) m += theta[layout_.trend_index(2)] * t * t;
-    for (int k = 0; k < layout_.n_planets; ++k) m += planet_velocity(planet_from(theta, layout_, k), t);
+    const InstrumentBlock& inst = *blocks_->instruments[static_cast<std::size_t>(data_.instrument[i])];
+    double m = inst.offset(theta);
+    if (order >= 1) m += blocks_->c1(theta) * t;
+    if (order >= 2) m += blocks_->c2(theta) * t * t;
+    for (const PlanetBlock* b : blocks_->planets) m += planet_velocity(b->planet(theta), t);
     const double r = data_.velocity_m_s[i] - m;
     double var = data_.uncertainty_m_s[i] * data_.uncertainty_m_s[i];
-    if (layout_.fit_jitter) {
-      const double j = theta[layout_.jitter_index(data_.instrument[i])];
+    if (inst.has_jitter()) {
+      const double j = inst.jitter(theta);
       var += j * j;
     }
     lnl += -0.5 * (r * r / var + std::log(kTwoPi * var));

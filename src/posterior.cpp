@@ -20,7 +20,9 @@ std::size_t DerivedChains::index(const std::string& name) const {
 DerivedChains derive_posterior(std::span<const double> samples, const ModelLayout& layout,
                                const DerivedOptions& options) {
   DerivedChains out;
-  const std::size_t dim = layout.n_params();
+  const ParameterLayout blocks = ParameterLayout::from(layout, {});
+  const std::vector<const PlanetBlock*> planet_blocks = blocks.planets();
+  const std::size_t dim = blocks.n_params();
   const std::size_t n = dim ? samples.size() / dim : 0;
   const bool mass = options.star_mass_msun.has_value() && *options.star_mass_msun > 0;
   struct Column { const char* name; const char* unit; const char* description; };
@@ -38,9 +40,9 @@ DerivedChains derive_posterior(std::span<const double> samples, const ModelLayou
     per_planet.push_back({"r_peri_au", "au", "periastron distance a (1 - e)"});
     per_planet.push_back({"r_apo_au", "au", "apastron distance a (1 + e)"});
   }
-  for (int p = 0; p < layout.n_planets; ++p)
+  for (const PlanetBlock* b : planet_blocks)
     for (const auto& c : per_planet) {
-      out.names.push_back(planet_label(p) + "." + c.name);
+      out.names.push_back(b->label() + "." + c.name);
       out.units.push_back(c.unit);
       out.descriptions.push_back(c.description);
     }
@@ -53,7 +55,7 @@ DerivedChains derive_posterior(std::span<const double> samples, const ModelLayou
   std::mt19937_64 rng(options.seed);
   std::normal_distribution<double> normal(0.0, 1.0);
   const std::size_t np = per_planet.size();
-  std::vector<Planet> planets(static_cast<std::size_t>(layout.n_planets));
+  std::vector<Planet> planets(planet_blocks.size());
   for (std::size_t i = 0; i < n; ++i) {
     const std::span<const double> theta = samples.subspan(i * dim, dim);
     double m_star = mass ? *options.star_mass_msun : 0.0;
@@ -62,7 +64,7 @@ DerivedChains derive_posterior(std::span<const double> samples, const ModelLayou
         m_star = *options.star_mass_msun + options.star_mass_err_msun * normal(rng);
       } while (m_star <= 0);
     }
-    for (int p = 0; p < layout.n_planets; ++p) planets[static_cast<std::size_t>(p)] = planet_from(theta, layout, p);
+    for (std::size_t p = 0; p < planet_blocks.size(); ++p) planets[p] = planet_blocks[p]->planet(theta);
     std::stable_sort(planets.begin(), planets.end(),
                      [](const Planet& a, const Planet& b) { return a.period_days < b.period_days; });
     for (std::size_t p = 0; p < planets.size(); ++p) {

@@ -261,10 +261,8 @@ bool ModelPriors::periastron_allowed(double period_days, double h, double k) con
   return h * h + k * k < periastron_max_eccentricity(period_days);
 }
 
-double ModelPriors::periastron_allowed_fraction(int planet) const {
+double ModelPriors::periastron_allowed_fraction(const Prior& pp, const EccentricityPrior& ep) const {
   if (!periastron_limit_active()) return 1.0;
-  const Prior& pp = parameter.at(static_cast<std::size_t>(5 * planet));
-  const EccentricityPrior& ep = eccentricity.at(static_cast<std::size_t>(planet));
   // Integrate over the period prior's quantile u in (0, 1): P(allowed) = E_u[F_e(e_max(P(u)))].
   auto allowed_given_u = [&](double u) {
     const double period = pp.kind == PriorKind::kFixed ? pp.a : pp.quantile(std::clamp(u, 1e-15, 1.0 - 1e-15));
@@ -275,44 +273,6 @@ double ModelPriors::periastron_allowed_fraction(int planet) const {
   const double f = boost::math::quadrature::gauss_kronrod<double, 31>::integrate(allowed_given_u, 0.0, 1.0, 15,
                                                                                   1e-10, &err);
   return std::clamp(f, 0.0, 1.0);
-}
-
-bool ModelPriors::in_support(std::span<const double> theta, int n_planets) const {
-  return std::isfinite(log_density(theta, n_planets));
-}
-
-double ModelPriors::log_density(std::span<const double> theta, int n_planets) const {
-  double lp = 0.0;
-  for (std::size_t i = 0; i < theta.size(); ++i) {
-    const std::size_t slot = i % 5;
-    const bool hk = i < static_cast<std::size_t>(5 * n_planets) && (slot == 2 || slot == 3);
-    if (hk) continue;
-    const double l = parameter[i].kind == PriorKind::kFixed
-                         ? (theta[i] == parameter[i].a ? 0.0 : -kInf)
-                         : parameter[i].log_density(theta[i]);
-    if (!std::isfinite(l)) return -kInf;
-    lp += l;
-  }
-  for (int j = 0; j < n_planets; ++j) {
-    const std::size_t k = static_cast<std::size_t>(5 * j);
-    const double l = eccentricity[static_cast<std::size_t>(j)].log_density_hk(theta[k + 2], theta[k + 3]);
-    if (!std::isfinite(l)) return -kInf;
-    lp += l;
-    if (!periastron_allowed(theta[k], theta[k + 2], theta[k + 3])) return -kInf;
-  }
-  if (first_unordered_planet(theta, n_planets) >= 0) return -kInf;
-  return lp;
-}
-
-int ModelPriors::first_unordered_planet(std::span<const double> theta, int n_planets) const {
-  if (!order_periods) return -1;
-  int previous = -1;
-  for (int j = 0; j < n_planets; ++j) {
-    if (is_label_fixed(j)) continue;
-    if (previous >= 0 && !(theta[static_cast<std::size_t>(5 * j)] > theta[static_cast<std::size_t>(5 * previous)])) return j;
-    previous = j;
-  }
-  return -1;
 }
 
 }  // namespace apsides

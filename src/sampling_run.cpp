@@ -10,41 +10,10 @@
 #include "apsides/error.h"
 #include "apsides/model_priors.h"
 #include "apsides/posterior.h"
+#include "apsides/posterior_model.h"
 #include "apsides/results_file.h"
 
 namespace apsides {
-
-struct JointLikelihood::Impl {
-  KeplerianModel model;
-  ModelLayout layout;
-  std::vector<std::pair<int, std::unique_ptr<TransitTimingLikelihood>>> transit_terms;
-  std::size_t n_transits = 0;
-};
-
-JointLikelihood::JointLikelihood(const VelocityData& data, const ModelLayout& layout, const TransitData& transits)
-    : impl_(std::make_unique<Impl>(Impl{KeplerianModel(data, layout), layout, {}, 0})) {
-  for (int j = 0; j < layout.n_planets; ++j) {
-    const TransitData td = transits.size() > 0 ? transits.for_planet(planet_label(j)) : TransitData{};
-    if (td.size() == 0) continue;
-    impl_->n_transits += td.size();
-    impl_->transit_terms.emplace_back(j, std::make_unique<TransitTimingLikelihood>(td, data.reference_epoch_bjd));
-  }
-}
-JointLikelihood::~JointLikelihood() = default;
-JointLikelihood::JointLikelihood(JointLikelihood&&) noexcept = default;
-
-double JointLikelihood::operator()(std::span<const double> theta) const {
-  double l = impl_->model.log_likelihood(theta);
-  if (!std::isfinite(l)) return l;
-  for (const auto& [j, term] : impl_->transit_terms) {
-    const std::size_t k = impl_->layout.planet_index(j);
-    const long ji = impl_->layout.transit_jitter_index(j);
-    l += term->log_likelihood(theta[k], theta[k + 4], ji >= 0 ? theta[static_cast<std::size_t>(ji)] : 0.0);
-  }
-  return l;
-}
-const KeplerianModel& JointLikelihood::model() const { return impl_->model; }
-std::size_t JointLikelihood::n_transit_points() const { return impl_->n_transits; }
 
 namespace {
 
@@ -78,22 +47,21 @@ class FileObserver : public SamplerObserver {
   std::vector<std::vector<double>> positions_, log_prob_;
 };
 
-// Ball half-widths around the MAP: small against any posterior width, so the ensemble
-// starts concentrated and the stretch moves expand it.
-std::vector<double> ball_scale(const ModelLayout& layout, std::span<const double> theta) {
+// Ball half-widths around the MAP, from each block: small against any posterior width,
+// so the ensemble starts concentrated and the stretch moves expand it.
+std::vector<double> ball_scale(const ParameterLayout& layout, std::span<const double> theta) {
   std::vector<double> s(theta.size(), 1e-3);
-  for (int p = 0; p < layout.n_planets; ++p) {
-    const std::size_t i = layout.planet_index(p);
-    s[i] = 1e-6 * std::abs(theta[i]) + 1e-9;         // period
-    s[i + 1] = 1e-3 * std::abs(theta[i + 1]) + 1e-3;  // K
-    s[i + 2] = s[i + 3] = 1e-3;                       // sqrt(e) cos w, sqrt(e) sin w
-    s[i + 4] = 1e-5 * std::abs(theta[i]) + 1e-6;      // t_conj: a tiny fraction of P
-  }
-  for (std::size_t i = layout.planet_index(layout.n_planets); i < theta.size(); ++i)
-    s[i] = 1e-3 * std::abs(theta[i]) + 1e-3;
-  for (int j : layout.transit_jitter_planets)
-    s[static_cast<std::size_t>(layout.transit_jitter_index(j))] = 1e-3 * std::abs(theta[static_cast<std::size_t>(layout.transit_jitter_index(j))]) + 1e-7;
+  for (const auto& b : layout.blocks())
+    for (int k = 0; k < b->size(); ++k) s[b->index(k)] = b->ball_scale(k, theta);
   return s;
+}
+
+// Every parameter's block kind and label, so that a reader can rebuild the model.
+std::vector<std::string> block_of_each_parameter(const ParameterLayout& layout) {
+  std::vector<std::string> out;
+  for (const auto& b : layout.blocks())
+    for (int k = 0; k < b->size(); ++k) out.push_back(to_string(b->kind()) + ":" + b->label());
+  return out;
 }
 
 std::string options_text(const SamplerOptions& o) {
@@ -181,18 +149,22 @@ SamplingRun sample_project(const Project& project, const SamplingRunOptions& arg
     file->write_velocity_data(data);
     file->write_project_text(project.text);
     file->write_parameters(run.names, layout.units(), describe_priors(priors, layout, data.instrument_names));
+    const ParameterLayout blocks = ParameterLayout::from(layout, data.instrument_names);
+    file->write_strings("/parameters/blocks", block_of_each_parameter(blocks),
+                        "block (kind:label) each parameter belongs to (parameter_blocks.h)");
+    std::string notes;
+    for (const auto& n : blocks.prior_notes(priors)) notes += (notes.empty() ? "" : "; ") + n;
+    file->set_attribute("/parameters", "prior_notes", notes.empty() ? std::string("none") : notes);
     file->write_vector("/map/theta", run.map.theta, "see /parameters/units", "MAP fit the walkers start around");
     file->set_attribute("/map", "log_posterior", run.map.log_posterior);
     file->set_attribute("/map", "log_likelihood", run.map.log_likelihood);
     file->create_chains(opt.walkers, layout.n_params(), opt.seed, options_text(opt));
     file->set_attribute("/chains", "n_planets", static_cast<long long>(layout.n_planets));
     file->set_attribute("/chains", "transit_points", static_cast<long long>(transits.size()));
-    const JointLikelihood probe(data, layout, transits);
-    const LogDensity probe_density = [&](std::span<const double> th) {
-      const double lp = priors.log_density(th, layout.n_planets);
-      return std::isfinite(lp) ? lp + probe(th) : lp;
-    };
-    start.positions = initial_ball(probe_density, run.map.theta, ball_scale(layout, run.map.theta), opt.walkers, opt.seed);
+    const PosteriorModel probe = make_posterior(data, layout, priors, transits);
+    const LogDensity probe_density = [&](std::span<const double> th) { return probe.log_posterior(th); };
+    start.positions =
+        initial_ball(probe_density, run.map.theta, ball_scale(probe.layout(), run.map.theta), opt.walkers, opt.seed);
     if (start.positions.empty()) {
       run.failure = "the MAP point has a non-finite posterior; cannot start the walkers";
       return run;
@@ -200,11 +172,8 @@ SamplingRun sample_project(const Project& project, const SamplingRunOptions& arg
   }
   if (const std::string e = opt.Validate(); !e.empty()) throw InputError(e);
 
-  const JointLikelihood likelihood(data, layout, transits);
-  const LogDensity log_post = [&](std::span<const double> th) {
-    const double lp = priors.log_density(th, layout.n_planets);
-    return std::isfinite(lp) ? lp + likelihood(th) : lp;
-  };
+  const PosteriorModel posterior = make_posterior(data, layout, priors, transits);
+  const LogDensity log_post = [&](std::span<const double> th) { return posterior.log_posterior(th); };
   FileObserver observer(*file, opt.max_steps, args);
   run.result = run_sampler(log_post, layout.n_params(), opt, start, &observer, args.resume ? &resume_rows : nullptr);
   if (run.result.termination == SamplerTermination::kFailed) return run;

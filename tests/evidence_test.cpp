@@ -288,8 +288,9 @@ TEST_SUITE("evidence") {
     fp.layout = layout;
     fp.priors = priors;
     const FitResult map = fit_map(fp, FitOptions{});
+    const ParameterLayout blocks = ParameterLayout::from(layout, data.instrument_names);
     const LogDensity log_post = [&](std::span<const double> th) {
-      const double lp = priors.log_density(th, 1);
+      const double lp = blocks.log_prior(th, priors);
       return std::isfinite(lp) ? lp + model.log_likelihood(th) : lp;
     };
     SamplerOptions so;

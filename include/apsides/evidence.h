@@ -224,6 +224,7 @@ NestedResult run_nested_sampling(const NestedProblem& problem, const NestedOptio
 struct EvidenceTransits {
   TransitData times;
   ModelPriors wide_priors;
+  ModelLayout wide_layout;  // the configuration wide_priors belong to
 };
 
 //

@@ -23,7 +23,14 @@
 //
 // The search (`search_planets`): fit 0 planets; compute the residual periodogram; while
 // the strongest peak's Baluev FAP is below `fap_threshold` and fewer than `max_planets`
-// are fitted, add a planet seeded there and refit all together. Each step records ln L,
+// are fitted, add a planet seeded there and refit all together; the planet is admitted
+// only when that lowers the velocities' BIC by `min_bic_improvement` (a periodogram peak
+// can be significant while no Keplerian explains it better than noise). A peak within
+// 1/baseline of a window alias (|f_j +- 1/sidereal day|, |f_j +- 1/day|, |f_j +- 1/year|)
+// of a fitted planet j is first tried as that planet's true period (the earlier step may
+// have taken the wrong alias): the move is kept when it lowers the BIC. Every fit keeps
+// the priors' physical limits (a periastron outside the star when its mass is known).
+// Each step records ln L,
 // the number of free parameters k, BIC = k ln n - 2 ln L and AICc = 2k - 2 ln L +
 // 2k(k+1)/(n-k-1) (CHECKS.md section 6), and the FAP that admitted it.
 //
@@ -117,6 +124,8 @@ struct FitResult {
     return termination == FitTermination::kConverged || termination == FitTermination::kEvaluationLimit ||
            termination == FitTermination::kRoundoffLimited;
   }
+  // The blocks of theta (planets, instruments, trend, ...).
+  ParameterLayout parameters() const { return ParameterLayout::from(layout, instrument_names); }
   std::string BriefReport() const;
   std::string FullReport() const;
 };
@@ -147,6 +156,9 @@ std::vector<PlanetSummary> derive_planets(const FitResult& fit, std::optional<do
 struct SearchOptions {
   int max_planets = 3;             // >= 0
   double fap_threshold = 1e-3;     // admit a peak with Baluev FAP below this, (0, 1)
+  // ... and only when the fit with the new planet lowers the velocities' BIC by at
+  // least this much (>= 0; 10 is "very strong" on the scale of Kass & Raftery 1995).
+  double min_bic_improvement = 10.0;
   FitOptions fit;                  // for every step's fit
 
   std::string Validate() const;

@@ -15,11 +15,13 @@
 
 #include <cstddef>
 #include <limits>
+#include <memory>
 #include <span>
 #include <string>
 #include <vector>
 
 #include "apsides/data.h"
+#include "apsides/parameter_blocks.h"
 
 namespace apsides {
 
@@ -58,13 +60,16 @@ double mean_anomaly_at(const Planet& planet, double t_days);
 // Velocity of the star due to one planet at time t (scalar reference implementation).
 double planet_velocity(const Planet& planet, double t_days);
 
-// Which parameters the model has and where they sit in the parameter vector theta:
-//   [planet 0: P, K, sqrt(e)cos w, sqrt(e)sin w, t_conj] [planet 1: ...] ...
+// The model's configuration: how many planets, instruments, which trend, whether jitters
+// and transit-time jitters are fitted. The parameter vector theta it gives is a list of
+// blocks (parameter_blocks.h: ParameterLayout::from):
+//   [planet b: P, K, sqrt(e)cos w, sqrt(e)sin w, t_conj] [planet c: ...] ...
 //   [instrument 0: offset, jitter] [instrument 1: ...] ... [trend c1, c2]
 //   [transit-time jitter of each planet in transit_jitter_planets, days]
 // Without jitters (fit_jitter = false) instruments have only an offset. Transit-time
-// jitters belong to the transit-time likelihood (sampling_run.h, evidence.h, fit.h); the
-// velocity model ignores them.
+// jitters belong to the transit-time likelihood (likelihood_terms.h); the velocity model
+// ignores them. The index helpers below ask the blocks; code that evaluates theta often
+// should keep a ParameterLayout and ask its blocks directly.
 enum class Trend { kNone = 0, kLinear = 1, kQuadratic = 2 };
 std::string to_string(Trend trend);
 Trend parse_trend(const std::string& text, const std::string& where);
@@ -78,11 +83,9 @@ struct ModelLayout {
   // ([[transits]] fit_jitter = true), whether or not the model has that planet.
   std::vector<int> transit_jitter_planets;
 
-  static constexpr int kPlanetParams = 5;
-  int per_instrument() const { return fit_jitter ? 2 : 1; }
   int trend_order() const { return static_cast<int>(trend); }
   std::size_t n_params() const;
-  std::size_t planet_index(int planet) const { return static_cast<std::size_t>(kPlanetParams * planet); }
+  std::size_t planet_index(int planet) const;      // the planet's period
   std::size_t offset_index(int instrument) const;
   std::size_t jitter_index(int instrument) const;  // only when fit_jitter
   std::size_t trend_index(int power) const;        // power 1 or 2
@@ -100,13 +103,21 @@ std::string planet_label(int index);
 Planet planet_from(std::span<const double> theta, const ModelLayout& layout, int planet);
 void put_planet(std::span<double> theta, const ModelLayout& layout, int planet, const Planet& p);
 
-// The model bound to a data set. Thread-safe for concurrent const calls.
+// The velocities' likelihood for a sum of Keplerian orbits with instrument offsets,
+// white noise (stated errors and jitter) and a trend, bound to a data set: the planet,
+// instrument and trend blocks of a ParameterLayout are read, other blocks ignored.
+// Thread-safe for concurrent const calls.
 class KeplerianModel {
  public:
   KeplerianModel(VelocityData data, ModelLayout layout);
+  KeplerianModel(VelocityData data, ParameterLayout parameters);
+  ~KeplerianModel();
+  KeplerianModel(const KeplerianModel& other);
+  KeplerianModel(KeplerianModel&&) noexcept;
 
   const VelocityData& data() const { return data_; }
   const ModelLayout& layout() const { return layout_; }
+  const ParameterLayout& parameters() const;
 
   // Gaussian log-likelihood (fast kernel, src/kernels/likelihood_kernel.cpp).
   // Returns -inf for unphysical theta (P <= 0, e >= 1, jitter < 0).
@@ -143,10 +154,14 @@ class KeplerianModel {
   std::vector<double> residuals(std::span<const double> theta) const;
   // Chi-square (with jitter added in quadrature to the stated errors).
   double chi_square(std::span<const double> theta) const;
+  // Stated variance plus the jitter of the point's instrument, at each data point.
+  std::vector<double> variances(std::span<const double> theta) const;
 
  private:
+  struct Blocks;  // the planet, instrument and trend blocks, resolved once
   VelocityData data_;
   ModelLayout layout_;
+  std::unique_ptr<Blocks> blocks_;
   // The data regrouped by instrument for the fast likelihood (built by the constructor):
   // instrument i owns entries [block_start_[i], block_start_[i + 1]).
   std::vector<double> block_time_days_, block_velocity_m_s_, block_variance_m2_s2_;

@@ -95,9 +95,13 @@ void require_in_support(const ModelPriors& priors, const ModelLayout& layout,
                         const std::vector<std::string>& instrument_names,
                         std::span<const double> theta, const std::string& what);
 
-// One line per parameter: "b.period_d  log-uniform(0.5, 4200)"; eccentricity priors as
-// "b.eccentricity  e uniform on [0, 0.99) ...". For reports and results files.
+// One line per parameter, in theta order: "b.period_d  log-uniform(0.5, 4200)"; a
+// planet's sqrt(e) cos w and sqrt(e) sin w lines name their joint eccentricity prior.
+// For reports and results files (/parameters/priors has one row per parameter).
 std::vector<std::string> describe_priors(const ModelPriors& priors, const ModelLayout& layout,
                                          const std::vector<std::string>& instrument_names);
+// Rules that act across parameters (period ordering, periastron limit), one line each.
+std::vector<std::string> prior_notes(const ModelPriors& priors, const ModelLayout& layout,
+                                     const std::vector<std::string>& instrument_names);
 
 }  // namespace apsides

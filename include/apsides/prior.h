@@ -69,10 +69,11 @@ struct EccentricityPrior {
   std::string describe() const;
 };
 
-// All priors of one model, in theta order (see ModelLayout).
+// All priors of one model: the values. A one-dimensional prior per theta entry, an
+// eccentricity prior per planet letter (b = 0), and the rules that act across parameters.
 struct ModelPriors {
   std::vector<Prior> parameter;             // one per theta entry
-  std::vector<EccentricityPrior> eccentricity;  // one per planet (acts on its h, k)
+  std::vector<EccentricityPrior> eccentricity;  // one per planet letter (acts on its h, k)
   bool order_periods = true;  // planets labelled by increasing period: P_b < P_c < ...
   // Planets whose letter is fixed by data (transit times labelled with it): they keep
   // their slot and take no part in the ordering; the other planets are ordered by period
@@ -83,14 +84,11 @@ struct ModelPriors {
     return planet >= 0 && static_cast<std::size_t>(planet) < label_fixed.size() &&
            label_fixed[static_cast<std::size_t>(planet)];
   }
-  // The first planet (slot) that breaks the period ordering, -1 when ordered (or not
-  // ordering).
-  int first_unordered_planet(std::span<const double> theta, int n_planets) const;
   // Orbits whose periastron lies inside the star are excluded: a (1 - e) must exceed
   // `min_periastron_au`, with a from Kepler's third law around `star_mass_msun` (the
   // planet's mass neglected). Off when either is 0. The excluded region makes the prior
-  // integrate to less than one; nested sampling divides its evidence by
-  // periastron_allowed_fraction for each planet (evidence.h).
+  // integrate to less than one; nested sampling divides its evidence by the allowed
+  // fraction of each planet (PlanetBlock::periastron_allowed_fraction, evidence.h).
   double min_periastron_au = 0.0;
   double star_mass_msun = 0.0;
 
@@ -100,13 +98,13 @@ struct ModelPriors {
   double periastron_max_eccentricity(double period_days) const;
   // true when planet (period, h, k) keeps its periastron outside the limit (or no limit).
   bool periastron_allowed(double period_days, double h, double k) const;
-  // Prior probability that planet j's orbit is allowed: the integral over its period
-  // prior of P(e < 1 - r_min / a(P)) under its eccentricity prior (adaptive
-  // Gauss-Kronrod quadrature, Boost.Math). 1 when no limit.
-  double periastron_allowed_fraction(int planet) const;
-
-  double log_density(std::span<const double> theta, int n_planets) const;
-  bool in_support(std::span<const double> theta, int n_planets) const;
+  // Prior probability that an orbit with these period and eccentricity priors is allowed:
+  // the integral over the period prior of P(e < 1 - r_min / a(P)) (adaptive Gauss-Kronrod
+  // quadrature, Boost.Math). 1 when no limit.
+  double periastron_allowed_fraction(const Prior& period_prior, const EccentricityPrior& eccentricity_prior) const;
+  // Where each value sits in theta, and the density over all of theta (joint priors,
+  // period ordering), is the business of the model's parameter blocks
+  // (parameter_blocks.h: ParameterLayout::log_prior).
 };
 
 }  // namespace apsides

@@ -59,6 +59,7 @@ struct SearchSettings {
   std::optional<double> max_period_d;
   double oversample = 10.0;
   double fap_threshold = 1e-3;
+  double min_bic_improvement = 10.0;  // see SearchOptions (fit.h)
 };
 
 struct ModelSettings {

@@ -2,10 +2,11 @@
 // sampler streaming its chain into the HDF5 results file, derived posteriors at the end.
 // `apsides sample` and `apsides analyze` both run this.
 //
-// The posterior: ModelPriors::log_density (model_priors.h: build_priors with the
-// project's [priors]) + the velocities' likelihood (keplerian_model.h) + for each planet
-// with [[transits]] rows labelled with its letter, the transit-timing likelihood
-// (ephemeris.h: T_n = T_conj + n P), so transit times pin that planet's period and phase.
+// The posterior: the composed model of posterior_model.h (make_posterior): the blocks'
+// priors (model_priors.h: build_priors with the project's [priors]) + the velocities'
+// term + for each planet with [[transits]] rows labelled with its letter, its
+// transit-time term (T_n = T_conj + n P), so transit times pin that planet's period
+// and phase.
 #pragma once
 
 #include <functional>
@@ -51,20 +52,5 @@ struct SamplingRun {
 };
 
 SamplingRun sample_project(const Project& project, const SamplingRunOptions& options);
-
-// Log-likelihood of velocities and transit times together, thread-safe.
-class JointLikelihood {
- public:
-  JointLikelihood(const VelocityData& data, const ModelLayout& layout, const TransitData& transits);
-  ~JointLikelihood();
-  JointLikelihood(JointLikelihood&&) noexcept;
-  double operator()(std::span<const double> theta) const;
-  const KeplerianModel& model() const;
-  std::size_t n_transit_points() const;
-
- private:
-  struct Impl;
-  std::unique_ptr<Impl> impl_;
-};
 
 }  // namespace apsides

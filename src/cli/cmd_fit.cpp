@@ -20,6 +20,8 @@ struct FitArgs {
   int max_planets = -1;
   double star_mass = 0.0;
   double star_mass_err = 0.0;
+  double star_radius = 0.0;
+  double min_bic_improvement = -1.0;
   std::string velocity_unit = "m/s";
   std::string instrument;
   std::string trend;
@@ -57,18 +59,20 @@ nlohmann::json fit_json(const FitResult& fit, const std::vector<PlanetSummary>& 
     j["planets"].push_back(q);
   }
   j["instruments"] = nlohmann::json::array();
-  const ModelLayout& L = fit.layout;
-  for (int i = 0; i < L.n_instruments; ++i) {
+  const ParameterLayout blocks = fit.parameters();
+  for (const InstrumentBlock* b : blocks.instruments()) {
     nlohmann::json q;
-    q["name"] = fit.instrument_names[static_cast<std::size_t>(i)];
-    q["offset_ms"] = value_json(fit.theta[L.offset_index(i)]);
-    q["jitter_ms"] = value_json(L.fit_jitter ? fit.theta[L.jitter_index(i)] : 0.0);
-    q["rms_ms"] = fit.rms_m_s[static_cast<std::size_t>(i)];
+    q["name"] = b->label();
+    q["offset_ms"] = value_json(b->offset(fit.theta));
+    q["jitter_ms"] = value_json(b->jitter(fit.theta));
+    q["rms_ms"] = fit.rms_m_s[static_cast<std::size_t>(b->instrument())];
     j["instruments"].push_back(q);
   }
-  if (L.trend_order() >= 1) j["trend_c1_ms_per_d"] = value_json(fit.theta[L.trend_index(1)]);
-  if (L.trend_order() >= 2) j["trend_c2_ms_per_d2"] = value_json(fit.theta[L.trend_index(2)]);
-  j["n_planets"] = L.n_planets;
+  if (const TrendBlock* t = blocks.trend()) {
+    if (t->order() >= 1) j["trend_c1_ms_per_d"] = value_json(t->coefficient(fit.theta, 1));
+    if (t->order() >= 2) j["trend_c2_ms_per_d2"] = value_json(t->coefficient(fit.theta, 2));
+  }
+  j["n_planets"] = fit.layout.n_planets;
   j["ln_like"] = fit.log_likelihood;
   j["ln_like_transits"] = fit.log_likelihood_transits;
   j["ln_prior"] = fit.log_prior;
@@ -100,18 +104,20 @@ void print_fit(const FitResult& fit, const std::vector<PlanetSummary>& planets, 
     if (mass) fmt::print("m sin i is a MINIMUM mass (sin i unknown); star mass {} Msun.\n", *mass);
     else fmt::print("No star mass given (--star-mass or [star] mass_msun): m sin i and a not computed.\n");
   }
-  const ModelLayout& L = fit.layout;
+  const ParameterLayout blocks = fit.parameters();
   fmt::print("\n{:<16} {:>14} {:>11} {:>10}\n", "instrument", "offset (m/s)", "jitter", "rms (m/s)");
-  for (int i = 0; i < L.n_instruments; ++i) {
-    fmt::print("{:<16} {:>14.3f} {:>11.3f} {:>10.3f}\n", fit.instrument_names[static_cast<std::size_t>(i)],
-               fit.theta[L.offset_index(i)], L.fit_jitter ? fit.theta[L.jitter_index(i)] : 0.0,
-               fit.rms_m_s[static_cast<std::size_t>(i)]);
+  for (const InstrumentBlock* b : blocks.instruments()) {
+    fmt::print("{:<16} {:>14.3f} {:>11.3f} {:>10.3f}\n", b->label(), b->offset(fit.theta), b->jitter(fit.theta),
+               fit.rms_m_s[static_cast<std::size_t>(b->instrument())]);
   }
-  if (L.trend_order() >= 1) fmt::print("trend c1 = {:.6g} m/s/d\n", fit.theta[L.trend_index(1)]);
-  if (L.trend_order() >= 2) fmt::print("trend c2 = {:.6g} m/s/d^2\n", fit.theta[L.trend_index(2)]);
-  for (int j : L.transit_jitter_planets) {
-    const double jit = fit.theta[static_cast<std::size_t>(L.transit_jitter_index(j))];
-    fmt::print("transit-time jitter {}: {:.3g} d ({:.2f} min)\n", planet_label(j), jit, jit * 1440.0);
+  if (const TrendBlock* t = blocks.trend()) {
+    if (t->order() >= 1) fmt::print("trend c1 = {:.6g} m/s/d\n", t->coefficient(fit.theta, 1));
+    if (t->order() >= 2) fmt::print("trend c2 = {:.6g} m/s/d^2\n", t->coefficient(fit.theta, 2));
+  }
+  for (const auto& b : blocks.blocks()) {
+    if (b->kind() != BlockKind::kTransitJitter) continue;
+    const double jit = static_cast<const TransitJitterBlock&>(*b).jitter(fit.theta);
+    fmt::print("transit-time jitter {}: {:.3g} d ({:.2f} min)\n", b->label(), jit, jit * 1440.0);
   }
   fmt::print("\nln L = {:.4f}   chi2 = {:.3f}   k = {}   n = {}   BIC = {:.3f}   AICc = {:.3f}\n", fit.log_likelihood,
              fit.chi2, fit.n_free, fit.n_points, fit.bic, fit.aicc);
@@ -133,8 +139,14 @@ Command register_fit(CLI::App& app) {
   cmd->add_option("--max-planets", args->max_planets, "Largest number of planets in a search [3]")->check(CLI::Range(0, 9));
   cmd->add_option("--fap-threshold", args->fap_threshold, "FAP below which a residual peak is admitted [0.001]")
       ->check(CLI::Range(1e-300, 0.999999));
+  cmd->add_option("--min-bic-improvement", args->min_bic_improvement,
+                  "BIC drop a new planet must bring to be admitted [10]")
+      ->check(CLI::NonNegativeNumber);
   cmd->add_option("--star-mass", args->star_mass, "Stellar mass (solar masses), for m sin i and a")->check(CLI::PositiveNumber);
   cmd->add_option("--star-mass-err", args->star_mass_err, "Its 1-sigma error (solar masses)")->check(CLI::NonNegativeNumber);
+  cmd->add_option("--star-radius", args->star_radius,
+                  "Stellar radius (solar radii) for the periastron limit [from the mass, R = M^0.8]")
+      ->check(CLI::PositiveNumber);
   cmd->add_option("--velocity-unit", args->velocity_unit, "Unit of the velocity files: m/s or km/s")
       ->check(CLI::IsMember({"m/s", "km/s"}));
   cmd->add_option("--instrument", args->instrument, "Instrument label for every file's rows");
@@ -155,10 +167,16 @@ Command register_fit(CLI::App& app) {
             } else {
               sp.data = load_velocity_arguments(args->files, args->instrument, args->velocity_unit);
             }
-            if (args->star_mass > 0.0) mass = args->star_mass;
+            if (args->star_mass > 0.0) {
+              mass = args->star_mass;
+              sp.star.mass_msun = args->star_mass;  // also the periastron limit of the priors
+              sp.star.mass_err_msun = args->star_mass_err;
+            }
+            if (args->star_radius > 0.0) sp.star.radius_rsun = args->star_radius;
             if (!args->trend.empty()) sp.model.trend = parse_trend(args->trend, "--trend");
             if (args->max_planets >= 0) sp.search.max_planets = args->max_planets;
             if (args->fap_threshold > 0.0) sp.search.fap_threshold = args->fap_threshold;
+            if (args->min_bic_improvement >= 0.0) sp.search.min_bic_improvement = args->min_bic_improvement;
             if (args->planets < 0 && !args->search) args->search = true;
 
             FitResult fit;
@@ -168,6 +186,7 @@ Command register_fit(CLI::App& app) {
               so.max_planets = sp.search.max_planets;
               so.fap_threshold = sp.search.fap_threshold;
               so.fit.oversample = sp.search.oversample;
+              so.min_bic_improvement = sp.search.min_bic_improvement;
               const SearchResult sr = search_planets(sp, so);
               fmt::print("{}\n", sr.FullReport());
               fit = sr.best();
