@@ -304,6 +304,14 @@ TEST_CASE("gp: the semiseparable and dense solvers agree on the same kernel") {
   REQUIRE(dense.compute([&](double tau) { return k.value(tau); }, p.t, p.var, p.scale).empty());
   CHECK(semi.log_likelihood(p.r) == doctest::Approx(dense.log_likelihood(p.r)).epsilon(1e-10));
   CHECK(semi.log_determinant() == doctest::Approx(dense.log_determinant()).epsilon(1e-10));
+  // The one-pass call gives the same number and leaves the same factor.
+  const double two_pass = semi.log_likelihood(p.r);
+  std::string msg = "unset";
+  CHECK(semi.compute_log_likelihood(k, p.t, p.var, p.r, p.scale, &msg) == doctest::Approx(two_pass).epsilon(1e-14));
+  CHECK(msg.empty());
+  CHECK(semi.log_likelihood(p.r) == doctest::Approx(two_pass).epsilon(1e-14));
+  CHECK(semi.compute_log_likelihood(k, p.t, p.var, std::span(p.r).first(3), p.scale, &msg) == -HUGE_VAL);
+  CHECK(msg == "GP inputs: 400 times but 3 residuals");
   // Equal times (two instruments at one epoch) are allowed.
   std::vector<double> t = p.t;
   t[10] = t[11];

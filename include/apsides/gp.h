@@ -85,6 +85,12 @@ class SemiseparableGP {
 
   std::string compute(const SemiseparableKernel& kernel, std::span<const double> t_days,
                       std::span<const double> variance, std::span<const double> scale = {});
+  // compute() and log_likelihood() in one pass (the forward sweep interleaved with the
+  // factorization): the likelihood call of a sampler. Returns -inf and sets *message
+  // when compute() would fail. Leaves the object as compute() does.
+  double compute_log_likelihood(const SemiseparableKernel& kernel, std::span<const double> t_days,
+                                std::span<const double> variance, std::span<const double> residuals,
+                                std::span<const double> scale = {}, std::string* message = nullptr);
   bool computed() const { return computed_; }
   std::size_t size() const { return n_; }
   int width() const { return j_; }
@@ -110,7 +116,10 @@ class SemiseparableGP {
 
  private:
   template <int kJ>
-  bool factor(std::size_t& bad_index);
+  bool factor(std::size_t& bad_index, const double* r, double* quad);
+  std::string compute_impl(const SemiseparableKernel& kernel, std::span<const double> t_days,
+                           std::span<const double> variance, std::span<const double> scale,
+                           const double* residuals, double* quad);
 
   bool computed_ = false;
   std::size_t n_ = 0;

@@ -10,6 +10,7 @@
 #include <array>
 #include <cassert>
 #include <cmath>
+#include <limits>
 #include <numbers>
 #include <numeric>
 #include <type_traits>
@@ -85,6 +86,28 @@ void SemiseparableGP::generators_at(double t, double s, double* u, double* v) co
 
 std::string SemiseparableGP::compute(const SemiseparableKernel& kernel, std::span<const double> t,
                                      std::span<const double> variance, std::span<const double> scale) {
+  return compute_impl(kernel, t, variance, scale, nullptr, nullptr);
+}
+
+double SemiseparableGP::compute_log_likelihood(const SemiseparableKernel& kernel, std::span<const double> t,
+                                               std::span<const double> variance,
+                                               std::span<const double> residuals,
+                                               std::span<const double> scale, std::string* message) {
+  std::string msg;
+  double quad = 0.0;
+  if (residuals.size() != t.size())
+    msg = "GP inputs: " + std::to_string(t.size()) + " times but " + std::to_string(residuals.size()) +
+          " residuals";
+  else
+    msg = compute_impl(kernel, t, variance, scale, residuals.data(), &quad);
+  if (message) *message = msg;
+  if (!msg.empty()) return -std::numeric_limits<double>::infinity();
+  return -0.5 * (quad + log_det_ + static_cast<double>(n_) * kLog2Pi);
+}
+
+std::string SemiseparableGP::compute_impl(const SemiseparableKernel& kernel, std::span<const double> t,
+                                          std::span<const double> variance, std::span<const double> scale,
+                                          const double* residuals, double* quad) {
   computed_ = false;
   if (std::string msg = check_inputs(kernel, t, variance, scale); !msg.empty()) return msg;
   kernel_ = kernel;
@@ -147,7 +170,8 @@ std::string SemiseparableGP::compute(const SemiseparableKernel& kernel, std::spa
     k += static_cast<std::size_t>(wdt);
   }
   std::size_t bad = 0;
-  const bool ok = with_width(j_, [&](auto jc) { return factor<decltype(jc)::value>(bad); });
+  const bool ok =
+      with_width(j_, [&](auto jc) { return factor<decltype(jc)::value>(bad, residuals, quad); });
   if (!ok)
     return "GP covariance is not positive definite (pivot " + std::to_string(bad) +
            " at t = " + std::to_string(t[bad]) + " d is not > 0)";
@@ -156,52 +180,92 @@ std::string SemiseparableGP::compute(const SemiseparableKernel& kernel, std::spa
   return "";
 }
 
+// The paper's recursion, rewritten one step ahead to shorten the loop-carried chain
+// (the algebra is exact; only the order of operations changes). With u~ = phi_n o U_n
+// and S_{n-1}, Y_{n-1} = D_{n-1} W_{n-1} from the previous step:
+//   S_n U_n     = phi_n o (S_{n-1} u~) + phi_n o Y_{n-1} (Y_{n-1} . u~) / D_{n-1}
+//   U_n S_n U_n = u~ S_{n-1} u~ + (Y_{n-1} . u~)^2 / D_{n-1}
+// so the products with S_{n-1} run while D_{n-1} is still being divided, and the chain
+// from one pivot to the next is a multiply, a subtraction and a division. The forward
+// sweep L z = r likewise: U_n . f_n = u~ . f_{n-1} + (u~ . W_{n-1}) z_{n-1}.
 template <int kJ>
-bool SemiseparableGP::factor(std::size_t& bad_index) {
+bool SemiseparableGP::factor(std::size_t& bad_index, const double* r, double* quad_out) {
   const int J = kJ > 0 ? kJ : j_;
   const std::size_t n = n_;
-  std::array<double, (kJ > 0 ? kJ * kJ : kMax * kMax)> S{};
-  std::array<double, (kJ > 0 ? kJ : kMax)> Su{};
+  if (n == 0) {
+    if (quad_out) *quad_out = 0.0;
+    return true;
+  }
+  constexpr int kCap = kJ > 0 ? kJ : kMax;
+  std::array<double, kCap * kCap> S{};  // S_{n-1}, full symmetric
+  std::array<double, kCap> ut{}, Sa{}, f{}, y_prev{};
   const double* U = u_.data();
   const double* V = v_.data();
   const double* Phi = phi_.data();
   double* W = w_.data();
   double* D = d_.data();
-  double d_prev = 0.0;
-  for (std::size_t i = 0; i < n; ++i) {
+  // Point 0: S_0 = 0.
+  D[0] = diag_[0];
+  if (!(D[0] > 0.0) || !std::isfinite(D[0])) {
+    bad_index = 0;
+    return false;
+  }
+  double inv_prev = 1.0 / D[0];
+  for (int a = 0; a < J; ++a) {
+    y_prev[a] = V[a];
+    W[a] = V[a] * inv_prev;
+  }
+  double z_prev = r ? r[0] : 0.0;
+  double quad = z_prev * z_prev * inv_prev;
+  for (std::size_t i = 1; i < n; ++i) {
     const double* u = U + i * J;
     const double* v = V + i * J;
+    const double* phi = Phi + i * J;
+    const double* wp = W + (i - 1) * J;
     double* w = W + i * J;
-    if (i > 0) {
-      // S_n = diag(phi_n) [S_{n-1} + D_{n-1} W_{n-1} W_{n-1}^T] diag(phi_n)
-      const double* phi = Phi + i * J;
-      const double* wp = W + (i - 1) * J;
-      for (int a = 0; a < J; ++a) {
-        const double da = d_prev * wp[a];
-        for (int b = 0; b < J; ++b) S[a * J + b] = phi[a] * phi[b] * (S[a * J + b] + da * wp[b]);
-      }
-    }
-    double uSu = 0.0;
+    for (int a = 0; a < J; ++a) ut[a] = phi[a] * u[a];
+    double q = 0.0, p = 0.0, uf = 0.0, uw = 0.0;
     for (int a = 0; a < J; ++a) {
       double acc = 0.0;
-      for (int b = 0; b < J; ++b) acc += S[a * J + b] * u[b];
-      Su[a] = acc;
-      uSu += u[a] * acc;
+      for (int b = 0; b < J; ++b) acc += S[a * J + b] * ut[b];
+      Sa[a] = acc;
+      q += ut[a] * acc;
+      p += y_prev[a] * ut[a];
+      uf += ut[a] * f[a];
+      uw += ut[a] * wp[a];
     }
-    const double dn = diag_[i] - uSu;
+    const double pinv = p * inv_prev;
+    const double dn = diag_[i] - q - p * pinv;
+    // S_{n-1} -> S_n (needs only the previous pivot).
+    for (int a = 0; a < J; ++a) {
+      const double ya = y_prev[a] * inv_prev;
+      for (int b = 0; b < J; ++b) S[a * J + b] = phi[a] * phi[b] * (S[a * J + b] + ya * y_prev[b]);
+    }
     if (!(dn > 0.0) || !std::isfinite(dn)) {
       bad_index = i;
       return false;
     }
     D[i] = dn;
     const double inv = 1.0 / dn;
-    for (int a = 0; a < J; ++a) w[a] = (v[a] - Su[a]) * inv;
-    d_prev = dn;
+    if (r) {
+      const double z = r[i] - uf - uw * z_prev;
+      for (int a = 0; a < J; ++a) f[a] = phi[a] * (f[a] + wp[a] * z_prev);
+      quad += z * z * inv;
+      z_prev = z;
+    }
+    for (int a = 0; a < J; ++a) {
+      const double yn = v[a] - phi[a] * (Sa[a] + y_prev[a] * pinv);
+      y_prev[a] = yn;
+      w[a] = yn * inv;
+    }
+    inv_prev = inv;
   }
+  if (quad_out) *quad_out = quad;
   return true;
 }
 
-// r^T K^-1 r = z^T D^-1 z with L z = r (the forward sweep alone).
+// r^T K^-1 r = z^T D^-1 z with L z = r (the forward sweep alone, one step ahead as in
+// factor()).
 template <int kJ>
 double SemiseparableGP::forward_quadratic(const double* r) const {
   const int J = kJ > 0 ? kJ : j_;
@@ -209,18 +273,20 @@ double SemiseparableGP::forward_quadratic(const double* r) const {
   const double* U = u_.data();
   const double* W = w_.data();
   const double* Phi = phi_.data();
-  double z_prev = 0.0, quad = 0.0;
-  for (std::size_t i = 0; i < n_; ++i) {
-    double z = r[i];
-    if (i > 0) {
-      const double* phi = Phi + i * J;
-      const double* wp = W + (i - 1) * J;
-      const double* u = U + i * J;
-      for (int a = 0; a < J; ++a) {
-        f[a] = phi[a] * (f[a] + wp[a] * z_prev);
-        z -= u[a] * f[a];
-      }
+  if (n_ == 0) return 0.0;
+  double z_prev = r[0], quad = r[0] * r[0] / d_[0];
+  for (std::size_t i = 1; i < n_; ++i) {
+    const double* phi = Phi + i * J;
+    const double* wp = W + (i - 1) * J;
+    const double* u = U + i * J;
+    double uf = 0.0, uw = 0.0;
+    for (int a = 0; a < J; ++a) {
+      const double ut = phi[a] * u[a];
+      uf += ut * f[a];
+      uw += ut * wp[a];
     }
+    const double z = r[i] - uf - uw * z_prev;
+    for (int a = 0; a < J; ++a) f[a] = phi[a] * (f[a] + wp[a] * z_prev);
     quad += z * z / d_[i];
     z_prev = z;
   }
@@ -234,6 +300,8 @@ double SemiseparableGP::log_likelihood(std::span<const double> r) const {
   return -0.5 * (quad + log_det_ + static_cast<double>(n_) * kLog2Pi);
 }
 
+// Forward L z = b, then backward L^T x = D^-1 z, both one step ahead (see factor()):
+// W_n . g_n = (W_n o phi_{n+1}) . g_{n+1} + ((W_n o phi_{n+1}) . U_{n+1}) x_{n+1}.
 template <int kJ>
 void SemiseparableGP::solve_one(const double* b, double* x) const {
   const int J = kJ > 0 ? kJ : j_;
@@ -243,35 +311,40 @@ void SemiseparableGP::solve_one(const double* b, double* x) const {
   const double* Phi = phi_.data();
   const std::size_t n = n_;
   if (n == 0) return;
-  // Forward: L z = b, z into x.
-  double z_prev = 0.0;
-  for (std::size_t i = 0; i < n; ++i) {
-    double z = b[i];
-    if (i > 0) {
-      const double* phi = Phi + i * J;
-      const double* wp = W + (i - 1) * J;
-      const double* u = U + i * J;
-      for (int a = 0; a < J; ++a) {
-        f[a] = phi[a] * (f[a] + wp[a] * z_prev);
-        z -= u[a] * f[a];
-      }
+  double z_prev = b[0];
+  x[0] = z_prev;
+  for (std::size_t i = 1; i < n; ++i) {
+    const double* phi = Phi + i * J;
+    const double* wp = W + (i - 1) * J;
+    const double* u = U + i * J;
+    double uf = 0.0, uw = 0.0;
+    for (int a = 0; a < J; ++a) {
+      const double ut = phi[a] * u[a];
+      uf += ut * f[a];
+      uw += ut * wp[a];
     }
+    const double z = b[i] - uf - uw * z_prev;
+    for (int a = 0; a < J; ++a) f[a] = phi[a] * (f[a] + wp[a] * z_prev);
     x[i] = z;
     z_prev = z;
   }
-  // Backward: L^T x = D^-1 z.
-  f.fill(0.0);
-  x[n - 1] /= d_[n - 1];
+  f.fill(0.0);  // g_{n+1}
+  double x_next = x[n - 1] / d_[n - 1];
+  x[n - 1] = x_next;
   for (std::size_t i = n - 1; i-- > 0;) {
     const double* phi = Phi + (i + 1) * J;
     const double* un = U + (i + 1) * J;
     const double* w = W + i * J;
-    double xi = x[i] / d_[i];
+    double wg = 0.0, wu = 0.0;
     for (int a = 0; a < J; ++a) {
-      f[a] = phi[a] * (f[a] + un[a] * x[i + 1]);
-      xi -= w[a] * f[a];
+      const double wt = w[a] * phi[a];
+      wg += wt * f[a];
+      wu += wt * un[a];
     }
+    const double xi = x[i] / d_[i] - wg - wu * x_next;
+    for (int a = 0; a < J; ++a) f[a] = phi[a] * (f[a] + un[a] * x_next);
     x[i] = xi;
+    x_next = xi;
   }
 }
 
