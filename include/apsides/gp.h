@@ -6,7 +6,7 @@
 //                    Requires the times sorted (non-decreasing). Meant for any N.
 //   DenseGP          any stationary kernel (the quasi-periodic kernel of Haywood et al.
 //                    2014), dense Cholesky (Eigen LLT): O(N^3) factor, O(N^2) memory and
-//                    solve. Meant for N <~ 1000 (N = 1000: ~0.1 s a factorization).
+//                    solve. Meant for N <~ 1000 (N = 1000: ~20-30 ms a factorization).
 //   MultiSeriesGP    velocities and activity indicators driven by one latent process G
 //                    (Rajpaul et al. 2015, MNRAS 452, 2269): series_k = c_k G + d_k dG/dt,
 //                    dense, meant for N <~ 500 points per series.
