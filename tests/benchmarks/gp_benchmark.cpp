@@ -68,7 +68,7 @@ std::vector<double> make_theta(const ModelLayout& L) {
 const apsides::gp::RotationKernel kRotation{27.0, 5.0, 1.2, 2.0, 0.6};
 
 struct Setup {
-  ModelLayout layout{2, 2, Trend::kNone, true};
+  ModelLayout layout{2, 2, Trend::kNone, true, {}};
   KeplerianModel model;
   std::vector<double> theta, var, offset, planets, r;
   explicit Setup(int n) : model(make_data(n), layout), theta(make_theta(layout)) {
