@@ -74,7 +74,8 @@ struct LinearSolution {
 //              U = s_n (a sin d t~ - b cos d t~),  V = s_n sin d t~    (column 2)
 //   kCritical  U = s_n (a + b t~), V = s_n (column 1);  U = s_n b, V = -s_n t~ (column 2)
 // and phi_{n,k} = exp(-c_k (t_n - t_{n-1})) (the paper's pre-conditioned, stable form).
-// The factor K = L D L^T, L = I + tril(U W^T, phi), is the recursion (paper Eq. 44-47):
+// The factor K = L D L^T, L = I + tril(U W^T, phi), is the recursion of the paper's
+// section 5 (equation numbers not quoted: cited from memory elsewhere):
 //   S_n = diag(phi_n) [S_{n-1} + D_{n-1} W_{n-1} W_{n-1}^T] diag(phi_n),  S_1 = 0,
 //   D_n = A_n - U_n^T S_n U_n,   W_n = (V_n - S_n U_n) / D_n,
 // O(N J^2). Solves, products, predictions and draws are O(N J) sweeps.
@@ -102,7 +103,8 @@ class SemiseparableGP {
   void solve(std::span<const double> b, std::span<double> x, std::size_t n_rhs = 1) const;
   // y = K x (the factored K, white variance included), O(N J).
   void multiply(std::span<const double> x, std::span<double> y, std::size_t n_rhs = 1) const;
-  // out = L D^(1/2) z: with z ~ N(0, I), out ~ N(0, K).
+  // out = L D^(1/2) z: with z ~ N(0, I), out ~ N(0, K). For the activity signal alone
+  // (no white noise), compute() with a tiny variance (e.g. 1e-10 k(0)) first.
   void draw(std::span<const double> standard_normals, std::span<double> out) const;
   // Conditional mean of s* G(t*) in O((N + M) J) (one sweep each way over the merged
   // times); with_sd adds the standard deviation, O(N J) per requested time (a forward

@@ -76,7 +76,7 @@ SemiseparableKernel operator+(SemiseparableKernel lhs, const SemiseparableKernel
 
 // ---------------------------------------------------------------------------------------
 // Stochastically driven damped simple harmonic oscillator (SHO).
-// Foreman-Mackey et al. 2017, Eqs. (20)-(23) (section 4.1): the power spectrum
+// Foreman-Mackey et al. 2017, section 4.1 (Eqs. 20-23 as we recall the numbering): the power spectrum
 //   S(omega) = sqrt(2/pi) S0 omega0^4 / [(omega^2 - omega0^2)^2 + omega0^2 omega^2 / Q^2]
 // and its Fourier transform in the paper's (unitary) convention,
 //   k(tau) = (1 / sqrt(2 pi)) int S(omega) exp(i omega tau) d omega
