@@ -69,6 +69,7 @@ struct ModelSettings {
   EccentricityPriorKind eccentricity = EccentricityPriorKind::kUniform;
   // Exclude orbits whose periastron lies inside the star (needs [star] mass_msun).
   bool periastron_outside_star = true;
+  NoiseSettings noise;  // [noise] kind, kernel, per_instrument_amplitude
 };
 
 // One [priors] entry, validated but not yet bound to a layout.
