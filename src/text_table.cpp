@@ -2,8 +2,9 @@
 
 #include <fmt/format.h>
 
-#include <cerrno>
 #include <algorithm>
+#include <cctype>
+#include <cerrno>
 #include <cmath>
 #include <cstdlib>
 #include <filesystem>
@@ -88,6 +89,23 @@ std::string suggest_key(const std::string& key, const std::vector<std::string>& 
 }
 
 std::string file_stem(const std::string& path) { return fs::path(path).stem().string(); }
+
+bool is_missing_value(const std::string& text) {
+  if (text.empty()) return true;
+  // CDS tables write a missing value as dashes ("---").
+  if (text.find_first_not_of('-') == std::string::npos) return true;
+  std::string t = text;
+  if (t.front() == '+' || t.front() == '-') t.erase(0, 1);
+  if (t.size() != 3) return false;
+  for (char& c : t) c = static_cast<char>(std::tolower(static_cast<unsigned char>(c)));
+  return t == "nan";
+}
+
+void require_filled(const TextRow& row, std::size_t column, const std::string& path) {
+  if (column < row.fields.size() && row.fields[column].empty()) {
+    throw InputError(fmt::format("{}:{}: column {} is empty", path, row.line, column + 1));
+  }
+}
 
 bool looks_numeric(const std::string& text) {
   if (text.empty()) return false;
@@ -208,11 +226,6 @@ TextTable read_text_table(const std::string& path) {
           "{}:{}: mixed delimiters: this line is {}-separated but line {} is {}-separated",
           path, line_no, this_delim == ',' ? "comma" : "whitespace", delimiter_line,
           table.delimiter == ',' ? "comma" : "whitespace"));
-    }
-    for (std::size_t i = 0; i < fields.size(); ++i) {
-      if (fields[i].empty()) {
-        throw InputError(fmt::format("{}:{}: column {} is empty", path, line_no, i + 1));
-      }
     }
     table.rows.push_back(TextRow{line_no, std::move(fields)});
   }
