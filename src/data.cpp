@@ -4,6 +4,7 @@
 
 #include <algorithm>
 #include <cmath>
+#include <cstdlib>
 #include <map>
 #include <numeric>
 
@@ -272,7 +273,10 @@ double extra_value(const detail::TextRow& row, std::size_t c, const VelocityLayo
   if (!L.named) detail::require_filled(row, c, path);
   const std::string& f = row.fields[c];
   if (detail::is_missing_value(f)) return std::numeric_limits<double>::quiet_NaN();
-  const double x = parse_number(f, path, row.line, column_what(L, c));
+  // Fast path without building the column's description; parse_number words any error.
+  char* end = nullptr;
+  const double x = std::strtod(f.c_str(), &end);
+  if (end == f.c_str() || *end != '\0' || !(std::fabs(x) <= 1e300)) parse_number(f, path, row.line, column_what(L, c));
   if (is_error && x < 0.0) {
     throw InputError(fmt::format("{}:{}: {} is {}; an uncertainty must be >= 0", path, row.line, column_what(L, c), f));
   }
