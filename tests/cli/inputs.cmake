@@ -35,3 +35,14 @@ add_test(NAME cli_scan_hd217107_as_it_comes COMMAND ${CMAKE_COMMAND}
 add_test(NAME cli_scan_hd217107_peak COMMAND $<TARGET_FILE:apsides> scan
          ${_real}/hd217107_rv_cls_rosenthal2021.csv --peaks 3 --quiet)
 set_tests_properties(cli_scan_hd217107_peak PROPERTIES PASS_REGULAR_EXPRESSION "\n +1 +7\\.12[67][0-9]* ")
+# A simulated scenario on a time scale of its own (day 0.5 onwards): the project simulate
+# writes declares time_offset = 0, so the data read back as they are.
+file(WRITE ${CMAKE_CURRENT_BINARY_DIR}/cli_inputs_day_zero.toml
+     "seed = 3\n[observing]\nstart_bjd = 0.5\nspan_days = 400\n[[instruments]]\nname = \"Wren\"\nn_points = 40\n[[planets]]\nperiod_d = 12.5\nK_ms = 30\n")
+add_test(NAME cli_inputs_simulate_day_zero COMMAND $<TARGET_FILE:apsides> simulate
+         ${CMAKE_CURRENT_BINARY_DIR}/cli_inputs_day_zero.toml --out ${CMAKE_CURRENT_BINARY_DIR}/tmp/cli_inputs_day_zero --quiet)
+set_tests_properties(cli_inputs_simulate_day_zero PROPERTIES FIXTURES_SETUP inputs_day_zero)
+add_test(NAME cli_inputs_scan_day_zero COMMAND $<TARGET_FILE:apsides> scan
+         ${CMAKE_CURRENT_BINARY_DIR}/tmp/cli_inputs_day_zero/project.toml --peaks 1 --quiet)
+set_tests_properties(cli_inputs_scan_day_zero PROPERTIES FIXTURES_REQUIRED inputs_day_zero
+  PASS_REGULAR_EXPRESSION "\n +1 +12\\.[45][0-9]* ")
