@@ -135,8 +135,10 @@ struct VelocityFileOptions {
   std::optional<double> time_offset_days{};
   RepeatPolicy repeats = RepeatPolicy::kKeep;
   // Extra columns to keep as indicators, by name. Unset: every extra numeric column (that
-  // is not an indicator's uncertainty column) is kept. A name that is not a column, or a
-  // named column empty on every row, is an input error.
+  // is not an indicator's uncertainty column) is kept, except one empty on every row (left
+  // out with a warning). A name that is not a column, or a named column empty on every
+  // row, is an input error. An uncertainty column named beside its indicator comes with
+  // it (not as a series of its own).
   std::optional<std::vector<std::string>> indicators{};
   // Names of every column, in order, for a file without a header row (a header's names are
   // replaced). Must name as many columns as the file has. The first three columns are time,
