@@ -28,6 +28,7 @@ struct EphemerisArgs {
   bool no_ttv = false;
   bool minutes = false;
   bool days = false;
+  double time_offset = 0.0;
   CommonOptions common;
 };
 
@@ -157,10 +158,13 @@ Command register_ephemeris(CLI::App& app) {
   cmd->add_flag("--no-ttv", args->no_ttv, "Skip the timing-variation search");
   auto* minutes = cmd->add_flag("--minutes", args->minutes, "O-C and errors in minutes (default)");
   cmd->add_flag("--days", args->days, "O-C and errors in days")->excludes(minutes);
+  const CLI::Option* time_offset = add_time_offset_option(cmd, args->time_offset);
   add_common_options(cmd, args->common);
 
-  return {cmd, [args]() -> int {
-            TransitData all = read_transit_file(args->times);
+  return {cmd, [args, time_offset]() -> int {
+            TransitFileOptions file_options;
+            file_options.time_offset_days = time_offset_value(time_offset, args->time_offset);
+            TransitData all = read_transit_file(args->times, file_options);
             std::set<std::string> labels(all.planet.begin(), all.planet.end());
             std::string planet = args->planet;
             TransitData data;
