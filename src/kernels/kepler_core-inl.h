@@ -1,0 +1,246 @@
+// Internal to the kernels, compiled once per SIMD target (Highway's "-inl.h" convention:
+// included after hwy/foreach_target.h, so the guard below toggles per target): the
+// vector math the kernels use and the branch-free Kepler solve they share.
+//
+// Method. M is reduced to m in [-pi, pi]; the solution is odd in m, so the work is on
+// |m| in [0, pi]. Markley (1995, Celest. Mech. Dyn. Astron. 63, 101) gives a starter E0
+// from a Pade approximation of sin E and the root of a cubic (his Eqs. 5-20, one cube
+// root and one square root), then one fifth-order correction d (his Eqs. 21-25,
+// "delta_15"). One sin/cos pair is evaluated, at E0; sin E and cos E at E = E0 + d
+// follow by angle addition with short Taylor series of sin d and cos d.
+//
+// Vector math (measured per target on this project's machine, see DEVELOPERS.md):
+// - sin/cos: SLEEF 3.5's sincos (3.5-ulp class, one range reduction for both) on the
+//   x86 targets, called per vector; it was 1.5x faster than Highway 1.0.3's Sin + Cos
+//   (two reductions) and more accurate (1.3 against 2.4 ulp measured). Other targets
+//   (scalar, NEON, SVE) use Highway's Sin and Cos (3 ulp, |x| < 39000).
+// - cube root: neither Highway 1.0.3 nor anything inline has one, and SLEEF's cbrt
+//   (an out-of-line call with a division) cost 2.3x this: an estimate from the
+//   exponent bits, four division-free Newton steps on x^(-1/3), one on x^(1/3)
+//   (0.7 ulp measured over 1e-30..1e4; tests/kepler_test.cpp checks it over 1e-40..1e40).
+// - log (likelihood): Highway's Log (4 ulp documented, 0.7 measured), inline.
+#if defined(APSIDES_KERNELS_KEPLER_CORE_INL_H_) == defined(HWY_TARGET_TOGGLE)
+#ifdef APSIDES_KERNELS_KEPLER_CORE_INL_H_
+#undef APSIDES_KERNELS_KEPLER_CORE_INL_H_
+#else
+#define APSIDES_KERNELS_KEPLER_CORE_INL_H_
+#endif
+
+#include <cstddef>
+#include <cstdint>
+
+#include "hwy/contrib/math/math-inl.h"
+#include "hwy/highway.h"
+#include "kernels/kepler_core.h"
+
+HWY_BEFORE_NAMESPACE();
+namespace apsides::kernels::HWY_NAMESPACE {
+namespace hn = hwy::HWY_NAMESPACE;
+
+using DF = hn::ScalableTag<double>;
+using VF = hn::Vec<DF>;
+
+// x^(1/3) to 5e-10 relative for finite normal x > 0: all the starter needs (its own
+// error is 4.4e-4 rad, which the fifth-order correction removes; 1e-9 more changes
+// nothing there). The argument lies in ~[1e-25, 1e3]. Estimate of x^(-1/3) from the
+// bits: for x = 2^k (1 + f) the bit pattern is ~2^52 (k + 1023 + f), so the pattern of
+// x^(-1/3) is ~(4/3) 1023 2^52 - bits(x) / 3, with the constant tuned for the log-linear
+// error (3.4 % at most over every exponent). The division by 3 of the 64-bit pattern is
+// x/4 + x/16 + ... by shifts (its truncation is far below the estimate's own error).
+// Newton on r -> x^(-1/3), r <- r (4 - x r^3) / 3, needs no division and squares the
+// error (times 2): 3.4e-2, 2.4e-3, 1.1e-5, 2.6e-10; then y = x r^2.
+template <class D, class V = hn::Vec<D>>
+HWY_INLINE V CbrtForStarter(D d, V x) {
+  const hn::RebindToUnsigned<D> du;
+  const auto b = hn::BitCast(du, x);
+  auto t = hn::Add(hn::ShiftRight<2>(b), hn::ShiftRight<4>(b));
+  t = hn::Add(t, hn::ShiftRight<4>(t));
+  t = hn::Add(t, hn::ShiftRight<8>(t));
+  t = hn::Add(t, hn::ShiftRight<16>(t));
+  t = hn::Add(t, hn::ShiftRight<32>(t));
+  V r = hn::BitCast(d, hn::Sub(hn::Set(du, uint64_t{0x553ef0ff289dd796}), t));
+  const V third = hn::Set(d, 1.0 / 3.0), four = hn::Set(d, 4.0);
+  for (int k = 0; k < 3; ++k) {
+    const V xr3 = hn::Mul(hn::Mul(r, r), hn::Mul(r, x));
+    r = hn::Mul(hn::Mul(r, third), hn::Sub(four, xr3));
+  }
+  return hn::Mul(x, hn::Mul(r, r));
+}
+
+// sin x for |x| <= pi/2 + 1e-3: the odd Taylor polynomial to degree 21 (truncation
+// below 3e-19 there), Horner in x^2. Measured against long double sinl over that range:
+// 2.3e-16 absolute and relative at most (one rounding of the last addition).
+template <class D, class V = hn::Vec<D>>
+HWY_INLINE V SinHalfPi(D d, V x) {
+  const V x2 = hn::Mul(x, x);
+  V p = hn::Set(d, -1.9572941063391263e-20);  // -1/21!
+  p = hn::MulAdd(p, x2, hn::Set(d, 8.22063524662433e-18));     // 1/19!
+  p = hn::MulAdd(p, x2, hn::Set(d, -2.8114572543455206e-15));  // -1/17!
+  p = hn::MulAdd(p, x2, hn::Set(d, 7.647163731819816e-13));    // 1/15!
+  p = hn::MulAdd(p, x2, hn::Set(d, -1.6059043836821613e-10));  // -1/13!
+  p = hn::MulAdd(p, x2, hn::Set(d, 2.505210838544172e-08));    // 1/11!
+  p = hn::MulAdd(p, x2, hn::Set(d, -2.7557319223985893e-06));  // -1/9!
+  p = hn::MulAdd(p, x2, hn::Set(d, 0.0001984126984126984));    // 1/7!
+  p = hn::MulAdd(p, x2, hn::Set(d, -0.008333333333333333));    // -1/5!
+  p = hn::MulAdd(p, x2, hn::Set(d, 0.16666666666666666));      // 1/3! (sign below)
+  return hn::NegMulAdd(hn::Mul(x, x2), p, x);
+}
+
+// sin x and cos x for x in [-1e-3, pi + 1e-3], the range of Markley's starter E0:
+// sin x = S(x) below pi/2 and S(pi - x) above, cos x = S(pi/2 - x), with S the
+// polynomial above and pi, pi/2 in two parts (the subtractions are exact or one
+// rounding, 1.1e-16). No general range reduction, no call: this is what the solve
+// spends on trigonometry (sincos_batch, for any x, calls SLEEF).
+template <class D, class V = hn::Vec<D>>
+HWY_INLINE void SinCosStarter(D d, V x, V& s, V& c) {
+  const V pi_hi = hn::Set(d, 3.141592653589793), pi_lo = hn::Set(d, 1.2246467991473532e-16);
+  const V half_pi_hi = hn::Set(d, 1.5707963267948966), half_pi_lo = hn::Set(d, 6.123233995736766e-17);
+  const V a = hn::IfThenElse(hn::Gt(x, half_pi_hi), hn::Add(hn::Sub(pi_hi, x), pi_lo), x);
+  s = SinHalfPi(d, a);
+  c = SinHalfPi(d, hn::Add(hn::Sub(half_pi_hi, x), half_pi_lo));
+}
+
+// s = sin x, c = cos x (see the header comment for which library).
+template <class D, class V = hn::Vec<D>>
+HWY_INLINE void SinCos(D d, V x, V& s, V& c) {
+#if HWY_TARGET == HWY_AVX3 || HWY_TARGET == HWY_AVX3_DL
+  const ApsidesSleefD8 r = Sleef_sincosd8_u35avx512f(x.raw);
+  s = V{r.x};
+  c = V{r.y};
+#elif HWY_TARGET == HWY_AVX2
+  const ApsidesSleefD4 r = Sleef_sincosd4_u35avx2(x.raw);
+  s = V{r.x};
+  c = V{r.y};
+#elif HWY_TARGET == HWY_SSE4
+  const ApsidesSleefD2 r = Sleef_sincosd2_u35sse4(x.raw);
+  s = V{r.x};
+  c = V{r.y};
+#else
+  s = hn::Sin(d, x);
+  c = hn::Cos(d, x);
+#endif
+}
+
+// Any finite M reduced to [-pi, pi] (up to one rounding): k = round(M / 2 pi) whole
+// turns removed with 2 pi split in three parts (Cody & Waite), the first two with 32
+// significant bits so that k C1 and k C2 are exact for |k| < 2^20 (|M| < 6.6e6 rad) with
+// or without fused multiply-add; the result then carries two roundings of a number <= pi
+// (4.4e-16 rad) on every target. (Beyond that the FMA targets stay as accurate and the
+// others lose ~ulp(M), which is the precision of M itself there.)
+template <class D, class V = hn::Vec<D>>
+HWY_INLINE V ReduceSymmetric(D d, V M) {
+  const V k = hn::Round(hn::Mul(M, hn::Set(d, detail::kInvTwoPi)));
+  V m = hn::NegMulAdd(k, hn::Set(d, 6.2831853069365025), M);  // 0x1.921fb544p+2
+  m = hn::NegMulAdd(k, hn::Set(d, 2.4308402025215864e-10), m);  // 0x1.0b4611a6p-32
+  return hn::NegMulAdd(k, hn::Set(d, 8.089064995183803e-21), m);
+}
+
+// Solves the points of one block: b.m holds n_pad reduced mean anomalies (n_pad a
+// multiple of the vector length, padding lanes filled with anything finite), b.e their
+// eccentricities when kPerPointEcc, else every point has e_one. Calls
+// finish(i, E, sin E, cos E) for the vector at offset i, with E in [-pi, pi].
+//
+// Two loops over the block, each throughput-bound: the starter (square root, cube root,
+// two divisions) and then the sin/cos call with the correction (three divisions). Both
+// chains are long; as separate loops the out-of-order core overlaps neighbouring vectors
+// of each instead of stalling on one chain, and E0 passes through L1.
+template <bool kPerPointEcc, class Finish>
+HWY_INLINE void SolveBlock(detail::KeplerBlock& b, double e_one, std::size_t n_pad, Finish&& finish) {
+  const DF d;
+  const std::size_t L = hn::Lanes(d);
+  constexpr double pi2 = detail::kPi * detail::kPi;
+  const VF one = hn::Set(d, 1.0);
+  const VF e_single = hn::Set(d, e_one);
+  const VF inv_1pe_single = hn::Set(d, 1.0 / (1.0 + e_one));
+
+  // Markley's starter, Eqs. (9)-(20): alpha, d, q, r, the cube root w and E0.
+  const VF c_alpha0 = hn::Set(d, 3.0 * pi2 / (pi2 - 6.0));
+  const VF c_alpha1 = hn::Set(d, 1.6 * detail::kPi / (pi2 - 6.0));
+  const VF pi = hn::Set(d, detail::kPi), two = hn::Set(d, 2.0), three = hn::Set(d, 3.0);
+  for (std::size_t i = 0; i < n_pad; i += L) {
+    const VF ei = kPerPointEcc ? hn::Load(d, b.e + i) : e_single;
+    const VF inv_1pe = kPerPointEcc ? hn::Div(one, hn::Add(one, ei)) : inv_1pe_single;
+    const VF mi = hn::Abs(hn::Load(d, b.m + i));
+    const VF one_m_e = hn::Sub(one, ei);
+    // alpha = (3 pi^2 + 1.6 pi (pi - m) / (1 + e)) / (pi^2 - 6)
+    const VF alpha = hn::MulAdd(hn::Mul(c_alpha1, hn::Sub(pi, mi)), inv_1pe, c_alpha0);
+    const VF di = hn::MulAdd(three, one_m_e, hn::Mul(alpha, ei));
+    const VF ad = hn::Mul(alpha, di);
+    const VF m2 = hn::Mul(mi, mi);
+    const VF qi = hn::MulSub(hn::Mul(two, ad), one_m_e, m2);
+    const VF ri = hn::MulAdd(hn::Mul(hn::Mul(three, ad), hn::Sub(di, one_m_e)), mi, hn::Mul(m2, mi));
+    hn::Store(qi, d, b.q + i);
+    hn::Store(ri, d, b.r + i);
+    hn::Store(di, d, b.d + i);
+    hn::Store(hn::Add(hn::Abs(ri), hn::Sqrt(hn::MulAdd(hn::Mul(qi, qi), qi, hn::Mul(ri, ri)))), d, b.E0 + i);
+  }
+  for (std::size_t i = 0; i < n_pad; i += L) {
+    const VF w = CbrtForStarter(d, hn::Load(d, b.E0 + i));
+    const VF qi = hn::Load(d, b.q + i), ri = hn::Load(d, b.r + i);
+    const VF w2 = hn::Mul(w, w);
+    const VF den = hn::MulAdd(w2, hn::Add(w2, qi), hn::Mul(qi, qi));
+    const VF num = hn::MulAdd(hn::Mul(two, ri), w2, hn::Mul(hn::Abs(hn::Load(d, b.m + i)), den));
+    hn::Store(hn::Div(num, hn::Mul(den, hn::Load(d, b.d + i))), d, b.E0 + i);
+  }
+  for (std::size_t i = 0; i < n_pad; i += L) {
+    VF s0, c0;
+    SinCosStarter(d, hn::Load(d, b.E0 + i), s0, c0);
+    hn::Store(s0, d, b.s0 + i);
+    hn::Store(c0, d, b.c0 + i);
+  }
+
+  // Fifth-order correction, Eqs. (21)-(25), and angle addition. The starter is good to
+  // 4.4e-4 rad (largest error over a grid of e in [0, 0.999], m in [0, pi]), so
+  // |d5| < 5e-4 and the dropped series terms (d^7/5040, d^8/40320) are below 1e-26.
+  const VF half = hn::Set(d, 0.5), sixth = hn::Set(d, 1.0 / 6.0), c24 = hn::Set(d, 1.0 / 24.0);
+  const VF c20 = hn::Set(d, 1.0 / 20.0), c12 = hn::Set(d, 1.0 / 12.0), c30 = hn::Set(d, 1.0 / 30.0);
+  for (std::size_t i = 0; i < n_pad; i += L) {
+    const VF E0 = hn::Load(d, b.E0 + i);
+    const VF s0 = hn::Load(d, b.s0 + i), c0 = hn::Load(d, b.c0 + i);
+    const VF ei = kPerPointEcc ? hn::Load(d, b.e + i) : e_single;
+    const VF m = hn::Load(d, b.m + i);
+    const VF es = hn::Mul(ei, s0), ec = hn::Mul(ei, c0);
+    const VF f0 = hn::Sub(hn::Sub(E0, es), hn::Abs(m));
+    const VF f1 = hn::Sub(one, ec);
+    const VF nf0 = hn::Neg(f0);
+    const VF hes = hn::Mul(half, es), ec6 = hn::Mul(ec, sixth);
+    const VF d3 = hn::Div(hn::Mul(nf0, f1), hn::NegMulAdd(hn::Mul(half, f0), es, hn::Mul(f1, f1)));
+    const VF d4 = hn::Div(nf0, hn::MulAdd(d3, hn::MulAdd(d3, ec6, hes), f1));
+    const VF d5 = hn::Div(nf0, hn::MulAdd(d4, hn::MulAdd(d4, hn::NegMulAdd(d4, hn::Mul(es, c24), ec6), hes), f1));
+    const VF dd = hn::Mul(d5, d5);
+    const VF sin_d = hn::Mul(d5, hn::NegMulAdd(hn::Mul(dd, sixth), hn::NegMulAdd(dd, c20, one), one));
+    const VF cos_d = hn::NegMulAdd(hn::Mul(dd, half),
+                                   hn::NegMulAdd(hn::Mul(dd, c12), hn::NegMulAdd(dd, c30, one), one), one);
+    const VF sin_E = hn::MulAdd(s0, cos_d, hn::Mul(c0, sin_d));
+    const VF cos_E = hn::NegMulAdd(s0, sin_d, hn::Mul(c0, cos_d));
+    finish(i, hn::CopySign(hn::Add(E0, d5), m), hn::CopySign(sin_E, m), cos_E);
+  }
+}
+
+// The vector length rounding of n (whole vectors cover n).
+HWY_INLINE std::size_t PaddedCount(std::size_t n) {
+  const std::size_t L = hn::Lanes(DF());
+  return (n + L - 1) / L * L;
+}
+
+// src[i, i + L) for the vector at offset i of an array of n values; lanes past n get
+// `pad`. Only the last vector of an array takes the slow way.
+HWY_INLINE VF LoadPadded(DF d, const double* HWY_RESTRICT src, std::size_t i, std::size_t n, double pad) {
+  if (HWY_LIKELY(i + hn::Lanes(d) <= n)) return hn::LoadU(d, src + i);
+  HWY_ALIGN double buf[HWY_MAX_BYTES / sizeof(double)];
+  for (std::size_t l = 0; l < hn::Lanes(d); ++l) buf[l] = i + l < n ? src[i + l] : pad;
+  return hn::Load(d, buf);
+}
+
+// dst[i, min(i + L, n)) = the lanes of v.
+HWY_INLINE void StorePadded(DF d, VF v, double* HWY_RESTRICT dst, std::size_t i, std::size_t n) {
+  if (HWY_LIKELY(i + hn::Lanes(d) <= n)) return hn::StoreU(v, d, dst + i);
+  HWY_ALIGN double buf[HWY_MAX_BYTES / sizeof(double)];
+  hn::Store(v, d, buf);
+  for (std::size_t l = 0; i + l < n; ++l) dst[i + l] = buf[l];
+}
+
+}  // namespace apsides::kernels::HWY_NAMESPACE
+HWY_AFTER_NAMESPACE();
+
+#endif  // include guard toggle
