@@ -186,6 +186,7 @@ TEST_SUITE("kepler") {
         }
         CHECK(worst_batch <= 1e-12);
         CHECK(worst_sincos <= 1e-12);
+        if (n == M.size()) MESSAGE(target << ": worst |E - E_ref| " << worst_batch << " rad, sin/cos " << worst_sincos);
       }
     });
   }
