@@ -9,16 +9,22 @@
 // "delta_15"). One sin/cos pair is evaluated, at E0; sin E and cos E at E = E0 + d
 // follow by angle addition with short Taylor series of sin d and cos d.
 //
-// Vector math (measured per target on this project's machine, see DEVELOPERS.md):
-// - sin/cos: SLEEF 3.5's sincos (3.5-ulp class, one range reduction for both) on the
-//   x86 targets, called per vector; it was 1.5x faster than Highway 1.0.3's Sin + Cos
-//   (two reductions) and more accurate (1.3 against 2.4 ulp measured). Other targets
-//   (scalar, NEON, SVE) use Highway's Sin and Cos (3 ulp, |x| < 39000).
-// - cube root: neither Highway 1.0.3 nor anything inline has one, and SLEEF's cbrt
-//   (an out-of-line call with a division) cost 2.3x this: an estimate from the
-//   exponent bits, four division-free Newton steps on x^(-1/3), one on x^(1/3)
-//   (0.7 ulp measured over 1e-30..1e4; tests/kepler_test.cpp checks it over 1e-40..1e40).
-// - log (likelihood): Highway's Log (4 ulp documented, 0.7 measured), inline.
+// Vector math. Measured per element on this project's (shared, loaded) AVX-512 machine,
+// each library function called in a loop under Highway's AVX-512 / AVX2 targets, error
+// against long double (sinl, cbrtl, logl):
+//   Highway 1.0.3 Sin + Cos (two reductions)     1.19 / 2.26 ns   2.0-2.4 ulp
+//   SLEEF 3.5 sincos u35 (one call, both)         0.80 / 1.42 ns   1.3 ulp
+//   SLEEF 3.5 sincos u10                          1.18 / 2.25 ns   0.8 ulp
+//   SLEEF 3.5 cbrt u35 / u10                      1.82 / 2.88 ns, 2.58 / 5.16 ns
+//   inline cube root (below, full precision)      0.66 / 1.28 ns   0.7 ulp
+//   Highway Log / SLEEF log u35                   0.52 / 1.11 ns, 0.40 / 1.48 ns  0.7 / 2.0 ulp
+// Highway 1.0.3 has no cube root and no joint sincos. The Kepler solve needs sin/cos only
+// on the starter's range [0, pi] and the cube root only to ~1e-9, so both are inline
+// below, without division or table (the solve took 6.2 ns on AVX2 with SLEEF's sincos
+// and a full-precision cube root, 5.0 with these; its error stays 2.7e-15 rad).
+// sincos_batch, which takes any x, calls SLEEF's sincos on x86 (Highway's Sin/Cos on the
+// other targets: scalar, NEON, SVE); the likelihood's log is Highway's Log (inline, the
+// faster of the two on AVX2).
 #if defined(APSIDES_KERNELS_KEPLER_CORE_INL_H_) == defined(HWY_TARGET_TOGGLE)
 #ifdef APSIDES_KERNELS_KEPLER_CORE_INL_H_
 #undef APSIDES_KERNELS_KEPLER_CORE_INL_H_
@@ -104,15 +110,15 @@ HWY_INLINE void SinCosStarter(D d, V x, V& s, V& c) {
 // s = sin x, c = cos x (see the header comment for which library).
 template <class D, class V = hn::Vec<D>>
 HWY_INLINE void SinCos(D d, V x, V& s, V& c) {
-#if HWY_TARGET == HWY_AVX3 || HWY_TARGET == HWY_AVX3_DL
+#if HWY_ARCH_X86_64 && (HWY_TARGET == HWY_AVX3 || HWY_TARGET == HWY_AVX3_DL)
   const ApsidesSleefD8 r = Sleef_sincosd8_u35avx512f(x.raw);
   s = V{r.x};
   c = V{r.y};
-#elif HWY_TARGET == HWY_AVX2
+#elif HWY_ARCH_X86_64 && HWY_TARGET == HWY_AVX2
   const ApsidesSleefD4 r = Sleef_sincosd4_u35avx2(x.raw);
   s = V{r.x};
   c = V{r.y};
-#elif HWY_TARGET == HWY_SSE4
+#elif HWY_ARCH_X86_64 && HWY_TARGET == HWY_SSE4
   const ApsidesSleefD2 r = Sleef_sincosd2_u35sse4(x.raw);
   s = V{r.x};
   c = V{r.y};
@@ -136,57 +142,125 @@ HWY_INLINE V ReduceSymmetric(D d, V M) {
   return hn::NegMulAdd(k, hn::Set(d, 8.089064995183803e-21), m);
 }
 
-// Solves the points of one block: b.m holds n_pad reduced mean anomalies (n_pad a
-// multiple of the vector length, padding lanes filled with anything finite), b.e their
-// eccentricities when kPerPointEcc, else every point has e_one. Calls
-// finish(i, E, sin E, cos E) for the vector at offset i, with E in [-pi, pi].
+// The cube root above in single precision, for the single-precision starter: the same
+// estimate (constant tuned for float: 3.4 % at most) and two Halley steps, 3.3e-7.
+template <class D, class V = hn::Vec<D>>
+HWY_INLINE V CbrtForStarterF32(D d, V x) {
+  const hn::RebindToUnsigned<D> du;
+  const auto b = hn::BitCast(du, x);
+  auto t = hn::Add(hn::ShiftRight<2>(b), hn::ShiftRight<4>(b));
+  t = hn::Add(t, hn::ShiftRight<4>(t));
+  t = hn::Add(t, hn::ShiftRight<8>(t));
+  t = hn::Add(t, hn::ShiftRight<16>(t));
+  V r = hn::BitCast(d, hn::Sub(hn::Set(du, uint32_t{0x54a2329f}), t));
+  const V one = hn::Set(d, 1.0f), third = hn::Set(d, 1.0f / 3.0f), two_ninths = hn::Set(d, 2.0f / 9.0f);
+  for (int k = 0; k < 2; ++k) {
+    const V h = hn::NegMulAdd(hn::Mul(r, r), hn::Mul(r, x), one);
+    r = hn::MulAdd(hn::Mul(r, h), hn::MulAdd(h, two_ninths, third), r);
+  }
+  return hn::Mul(x, hn::Mul(r, r));
+}
+
+// Markley's starter, Eqs. (9)-(20), with every quantity multiplied by the power of
+// s = 1 + e that clears his 1/(1 + e) (no division per point): A = s alpha, D = s d,
+// Q = s^2 q, R = s^3 r, W = s w, and E0 = (2 r w^2 + m den) / (den d) becomes
+// (2 R W^2 + m s DEN) / (DEN D) with DEN = W^4 + W^2 Q + Q^2 = s^4 den. Written once for
+// double and float lanes (T), in two halves (the cube root's argument; then E0) that
+// the caller runs as separate loops. m = |reduced M|, u = 1 - e computed in double.
+template <class D, class V = hn::Vec<D>>
+HWY_INLINE void MarkleyCubic(D d, V m, V e, V u, V& Q, V& R, V& Dv, V& ms, V& arg) {
+  using T = hn::TFromD<D>;
+  constexpr double pi2 = detail::kPi * detail::kPi;
+  const V s = hn::Add(hn::Set(d, T(1)), e), us = hn::Mul(u, s), three = hn::Set(d, T(3));
+  // A = (3 pi^2 s + 1.6 pi (pi - m)) / (pi^2 - 6), D = 3 (1 - e) s + A e
+  const V A = hn::MulAdd(hn::Set(d, T(3.0 * pi2 / (pi2 - 6.0))), s,
+                         hn::Mul(hn::Set(d, T(1.6 * detail::kPi / (pi2 - 6.0))), hn::Sub(hn::Set(d, T(detail::kPi)), m)));
+  Dv = hn::MulAdd(three, us, hn::Mul(A, e));
+  const V AD = hn::Mul(A, Dv);
+  ms = hn::Mul(m, s);
+  const V ms2 = hn::Mul(ms, ms);
+  Q = hn::MulSub(hn::Add(AD, AD), u, ms2);                                        // 2 A D u - (m s)^2
+  R = hn::MulAdd(hn::Mul(hn::Mul(three, AD), hn::Sub(Dv, us)), m, hn::Mul(ms2, ms));  // 3 A D (D - u s) m + (m s)^3
+  arg = hn::Add(hn::Abs(R), hn::Sqrt(hn::MulAdd(hn::Mul(Q, Q), Q, hn::Mul(R, R))));
+}
+template <class D, class V = hn::Vec<D>>
+HWY_INLINE V MarkleyE0(D d, V Q, V R, V Dv, V ms, V arg) {
+  using T = hn::TFromD<D>;
+  V W;
+  if constexpr (sizeof(T) == 4) {
+    W = CbrtForStarterF32(d, arg);
+  } else {
+    W = CbrtForStarter(d, arg);
+  }
+  const V W2 = hn::Mul(W, W);
+  const V DEN = hn::MulAdd(W2, hn::Add(W2, Q), hn::Mul(Q, Q));
+  return hn::Div(hn::MulAdd(hn::Add(R, R), W2, hn::Mul(ms, DEN)), hn::Mul(DEN, Dv));
+}
+
+// Fills b.E0 with the starter for the n_pad points of b.m (and b.e when kPerPointEcc).
+// The starter is only good to 4.4e-4 rad (the correction removes that), so where the
+// target has vectors it runs in single precision on twice the lanes: the float rounding
+// (1e-7) is nothing beside that, and it halves the starter's share of the solve. 1 - e
+// is taken in double first, so e near 1 keeps its distance from 1. The scalar target,
+// where float buys nothing, stays in double.
+template <bool kPerPointEcc>
+HWY_INLINE void Starter(detail::KeplerBlock& b, double e_one, std::size_t n_pad) {
+  const DF d;
+  const std::size_t L = hn::Lanes(d);
+  const VF one = hn::Set(d, 1.0);
+#if HWY_TARGET == HWY_SCALAR
+  for (std::size_t i = 0; i < n_pad; i += L) {
+    const VF ei = kPerPointEcc ? hn::Load(d, b.e + i) : hn::Set(d, e_one);
+    VF Q, R, Dv, ms, arg;
+    MarkleyCubic(d, hn::Abs(hn::Load(d, b.m + i)), ei, hn::Sub(one, ei), Q, R, Dv, ms, arg);
+    hn::Store(MarkleyE0(d, Q, R, Dv, ms, arg), d, b.E0 + i);
+  }
+#else
+  const hn::Repartition<float, DF> df;  // twice the lanes of d
+  const hn::Rebind<float, DF> dh;       // L floats: half of df
+  auto demote2 = [&](VF lo, VF hi) { return hn::Combine(df, hn::DemoteTo(dh, hi), hn::DemoteTo(dh, lo)); };
+  // Two loops (the cube root's argument, then the cube root and E0): each chain is then
+  // short enough for the out-of-order core to overlap several vectors.
+  for (std::size_t i = 0; i < n_pad; i += 2 * L) {
+    const auto m = hn::Abs(demote2(hn::Load(d, b.m + i), hn::Load(d, b.m + i + L)));
+    const VF e_lo = kPerPointEcc ? hn::Load(d, b.e + i) : hn::Set(d, e_one);
+    const VF e_hi = kPerPointEcc ? hn::Load(d, b.e + i + L) : hn::Set(d, e_one);
+    hn::Vec<decltype(df)> Q, R, Dv, ms, arg;
+    MarkleyCubic(df, m, demote2(e_lo, e_hi), demote2(hn::Sub(one, e_lo), hn::Sub(one, e_hi)), Q, R, Dv, ms, arg);
+    hn::Store(Q, df, b.Qf + i);
+    hn::Store(R, df, b.Rf + i);
+    hn::Store(Dv, df, b.Df + i);
+    hn::Store(ms, df, b.msf + i);
+    hn::Store(arg, df, b.argf + i);
+  }
+  for (std::size_t i = 0; i < n_pad; i += 2 * L) {
+    const auto E0 = MarkleyE0(df, hn::Load(df, b.Qf + i), hn::Load(df, b.Rf + i), hn::Load(df, b.Df + i),
+                              hn::Load(df, b.msf + i), hn::Load(df, b.argf + i));
+    hn::Store(hn::PromoteTo(d, hn::LowerHalf(dh, E0)), d, b.E0 + i);
+    hn::Store(hn::PromoteTo(d, hn::UpperHalf(dh, E0)), d, b.E0 + i + L);
+  }
+#endif
+}
+
+// Solves the points of one block: b.m holds n_pad reduced mean anomalies (n_pad from
+// PaddedCount, padding lanes filled with anything finite), b.e their eccentricities when
+// kPerPointEcc, else every point has e_one. Calls finish(i, E, sin E, cos E) for the
+// vector at offset i, with E in [-pi, pi].
 //
-// Two loops over the block, each throughput-bound: the starter (square root, cube root,
-// two divisions) and then the sin/cos call with the correction (three divisions). Both
-// chains are long; as separate loops the out-of-order core overlaps neighbouring vectors
-// of each instead of stalling on one chain, and E0 passes through L1.
+// Five loops over the block, each throughput-bound: the starter's cubic and its root
+// (Starter), sin/cos of E0, Halley's step d3, then d4, d5 and the angle addition. The
+// whole chain per vector is long (a square root, a cube root and four divisions): in
+// one loop the out-of-order core stalls on it, as separate loops it overlaps
+// neighbouring vectors of each, and the intermediates pass through L1. (Measured on
+// AVX2: one loop for the starter and one for sin/cos + correction took 6.2 ns per
+// solve, these five 4.0-4.7.)
 template <bool kPerPointEcc, class Finish>
 HWY_INLINE void SolveBlock(detail::KeplerBlock& b, double e_one, std::size_t n_pad, Finish&& finish) {
   const DF d;
   const std::size_t L = hn::Lanes(d);
-  constexpr double pi2 = detail::kPi * detail::kPi;
   const VF one = hn::Set(d, 1.0);
   const VF e_single = hn::Set(d, e_one);
-
-  // Markley's starter, Eqs. (9)-(20), with every quantity multiplied by the power of
-  // s = 1 + e that clears his 1/(1 + e) (no division per point): A = s alpha, D = s d,
-  // Q = s^2 q, R = s^3 r, W = s w, and E0 = (2 r w^2 + m den) / (den d) becomes
-  // (2 R W^2 + m s DEN) / (DEN D) with DEN = W^4 + W^2 Q + Q^2 = s^4 den.
-  const VF c_alpha0 = hn::Set(d, 3.0 * pi2 / (pi2 - 6.0));
-  const VF c_alpha1 = hn::Set(d, 1.6 * detail::kPi / (pi2 - 6.0));
-  const VF pi = hn::Set(d, detail::kPi), two = hn::Set(d, 2.0), three = hn::Set(d, 3.0);
-  for (std::size_t i = 0; i < n_pad; i += L) {
-    const VF ei = kPerPointEcc ? hn::Load(d, b.e + i) : e_single;
-    const VF mi = hn::Abs(hn::Load(d, b.m + i));
-    const VF s = hn::Add(one, ei), u = hn::Sub(one, ei), us = hn::Mul(u, s);
-    // A = (3 pi^2 s + 1.6 pi (pi - m)) / (pi^2 - 6), D = 3 (1 - e) s + A e
-    const VF A = hn::MulAdd(c_alpha0, s, hn::Mul(c_alpha1, hn::Sub(pi, mi)));
-    const VF D = hn::MulAdd(three, us, hn::Mul(A, ei));
-    const VF AD = hn::Mul(A, D);
-    const VF ms = hn::Mul(mi, s);
-    const VF ms2 = hn::Mul(ms, ms);
-    const VF Q = hn::MulSub(hn::Add(AD, AD), u, ms2);                                       // 2 A D u - (m s)^2
-    const VF R = hn::MulAdd(hn::Mul(hn::Mul(three, AD), hn::Sub(D, us)), mi, hn::Mul(ms2, ms));  // 3 A D (D - u s) m + (m s)^3
-    hn::Store(Q, d, b.q + i);
-    hn::Store(R, d, b.r + i);
-    hn::Store(D, d, b.d + i);
-    hn::Store(hn::Add(hn::Abs(R), hn::Sqrt(hn::MulAdd(hn::Mul(Q, Q), Q, hn::Mul(R, R)))), d, b.E0 + i);
-  }
-  for (std::size_t i = 0; i < n_pad; i += L) {
-    const VF W = CbrtForStarter(d, hn::Load(d, b.E0 + i));
-    const VF Q = hn::Load(d, b.q + i), R = hn::Load(d, b.r + i);
-    const VF ei = kPerPointEcc ? hn::Load(d, b.e + i) : e_single;
-    const VF ms = hn::Mul(hn::Abs(hn::Load(d, b.m + i)), hn::Add(one, ei));
-    const VF W2 = hn::Mul(W, W);
-    const VF DEN = hn::MulAdd(W2, hn::Add(W2, Q), hn::Mul(Q, Q));
-    const VF num = hn::MulAdd(hn::Add(R, R), W2, hn::Mul(ms, DEN));
-    hn::Store(hn::Div(num, hn::Mul(DEN, hn::Load(d, b.d + i))), d, b.E0 + i);
-  }
+  Starter<kPerPointEcc>(b, e_one, n_pad);
   for (std::size_t i = 0; i < n_pad; i += L) {
     VF s0, c0;
     SinCosStarter(d, hn::Load(d, b.E0 + i), s0, c0);
@@ -199,6 +273,14 @@ HWY_INLINE void SolveBlock(detail::KeplerBlock& b, double e_one, std::size_t n_p
   // |d5| < 5e-4 and the dropped series terms (d^7/5040, d^8/40320) are below 1e-26.
   const VF half = hn::Set(d, 0.5), sixth = hn::Set(d, 1.0 / 6.0), c24 = hn::Set(d, 1.0 / 24.0);
   const VF c20 = hn::Set(d, 1.0 / 20.0), c12 = hn::Set(d, 1.0 / 12.0), c30 = hn::Set(d, 1.0 / 30.0);
+  // d3 (Halley's step, Eq. 22) in a loop of its own, then d4, d5 and the angle addition.
+  for (std::size_t i = 0; i < n_pad; i += L) {
+    const VF ei = kPerPointEcc ? hn::Load(d, b.e + i) : e_single;
+    const VF es = hn::Mul(ei, hn::Load(d, b.s0 + i)), ec = hn::Mul(ei, hn::Load(d, b.c0 + i));
+    const VF f0 = hn::Sub(hn::Sub(hn::Load(d, b.E0 + i), es), hn::Abs(hn::Load(d, b.m + i)));
+    const VF f1 = hn::Sub(one, ec);
+    hn::Store(hn::Div(hn::Mul(hn::Neg(f0), f1), hn::NegMulAdd(hn::Mul(half, f0), es, hn::Mul(f1, f1))), d, b.d3 + i);
+  }
   for (std::size_t i = 0; i < n_pad; i += L) {
     const VF E0 = hn::Load(d, b.E0 + i);
     const VF s0 = hn::Load(d, b.s0 + i), c0 = hn::Load(d, b.c0 + i);
@@ -209,7 +291,7 @@ HWY_INLINE void SolveBlock(detail::KeplerBlock& b, double e_one, std::size_t n_p
     const VF f1 = hn::Sub(one, ec);
     const VF nf0 = hn::Neg(f0);
     const VF hes = hn::Mul(half, es), ec6 = hn::Mul(ec, sixth);
-    const VF d3 = hn::Div(hn::Mul(nf0, f1), hn::NegMulAdd(hn::Mul(half, f0), es, hn::Mul(f1, f1)));
+    const VF d3 = hn::Load(d, b.d3 + i);
     const VF d4 = hn::Div(nf0, hn::MulAdd(d3, hn::MulAdd(d3, ec6, hes), f1));
     const VF d5 = hn::Div(nf0, hn::MulAdd(d4, hn::MulAdd(d4, hn::NegMulAdd(d4, hn::Mul(es, c24), ec6), hes), f1));
     const VF dd = hn::Mul(d5, d5);
@@ -222,10 +304,11 @@ HWY_INLINE void SolveBlock(detail::KeplerBlock& b, double e_one, std::size_t n_p
   }
 }
 
-// The vector length rounding of n (whole vectors cover n).
+// n rounded up to what the solve takes at once: whole vectors, pairs of them where the
+// starter runs in float (Starter).
 HWY_INLINE std::size_t PaddedCount(std::size_t n) {
-  const std::size_t L = hn::Lanes(DF());
-  return (n + L - 1) / L * L;
+  const std::size_t step = (HWY_TARGET == HWY_SCALAR ? 1 : 2) * hn::Lanes(DF());
+  return (n + step - 1) / step * step;
 }
 
 // src[i, i + L) for the vector at offset i of an array of n values; lanes past n get

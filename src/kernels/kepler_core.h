@@ -20,20 +20,24 @@ inline constexpr double kInvTwoPi = 0.15915494309189533577;
 inline constexpr std::size_t kBlock = 256;
 
 // Temporaries of one block: `m` holds the reduced mean anomalies in [-pi, pi] and `e`
-// the eccentricities (per-point solves), both padded to whole vectors; the rest is
-// scratch the stages pass between them.
+// the eccentricities (per-point solves), both padded to whole vectors; the rest is what
+// the stages of the solve (kepler_core-inl.h, SolveBlock) pass between them.
 struct KeplerBlock {
   // Each array is followed by kSkew unused doubles, so that the arrays do not sit at
   // multiples of 4 KiB from each other (loads would then wait on unrelated stores).
   static constexpr std::size_t kSkew = 8;
   alignas(64) double m[kBlock + kSkew];
   alignas(64) double e[kBlock + kSkew];
-  alignas(64) double q[kBlock + kSkew];
-  alignas(64) double r[kBlock + kSkew];
-  alignas(64) double d[kBlock + kSkew];
   alignas(64) double E0[kBlock + kSkew];
+  alignas(64) double d3[kBlock + kSkew];
   alignas(64) double s0[kBlock + kSkew];
   alignas(64) double c0[kBlock + kSkew];
+  // The starter's intermediates in single precision (kepler_core-inl.h, Starter).
+  alignas(64) float Qf[kBlock + 2 * kSkew];
+  alignas(64) float Rf[kBlock + 2 * kSkew];
+  alignas(64) float Df[kBlock + 2 * kSkew];
+  alignas(64) float msf[kBlock + 2 * kSkew];
+  alignas(64) float argf[kBlock + 2 * kSkew];
 };
 
 }  // namespace apsides::kernels::detail
