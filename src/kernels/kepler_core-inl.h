@@ -19,12 +19,16 @@
 //   inline cube root (below, full precision)      0.66 / 1.28 ns   0.7 ulp
 //   Highway Log / SLEEF log u35                   0.52 / 1.11 ns, 0.40 / 1.48 ns  0.7 / 2.0 ulp
 // Highway 1.0.3 has no cube root and no joint sincos. The Kepler solve needs sin/cos only
-// on the starter's range [0, pi] and the cube root only to ~1e-9, so both are inline
-// below, without division or table (the solve took 6.2 ns on AVX2 with SLEEF's sincos
-// and a full-precision cube root, 5.0 with these; its error stays 2.7e-15 rad).
-// sincos_batch, which takes any x, calls SLEEF's sincos on x86 (Highway's Sin/Cos on the
-// other targets: scalar, NEON, SVE); the likelihood's log is Highway's Log (inline, the
-// faster of the two on AVX2).
+// on the starter's range [0, pi] and the cube root only to ~1e-6, so both are inline
+// below, without division or table. sincos_batch, which takes any x, calls SLEEF's
+// sincos on x86 (Highway's Sin/Cos on the other targets: scalar, NEON, SVE); the
+// likelihood's log is Highway's Log (inline, the faster of the two on AVX2).
+//
+// Steps measured on AVX2 (ns per solve, Kepler batch, load 7-10 on 2 cores): SLEEF's
+// sincos and a full-precision cube root in two loops 6.2; inline sin/cos and cube root
+// 5.0; the starter without its per-point division 4.7; the starter in float on twice the
+// lanes and every stage its own loop 3.9-4.0. The worst error against a long-double
+// reference stays 2.7e-15 rad (double starter) / 3.6e-15 rad (float starter).
 #if defined(APSIDES_KERNELS_KEPLER_CORE_INL_H_) == defined(HWY_TARGET_TOGGLE)
 #ifdef APSIDES_KERNELS_KEPLER_CORE_INL_H_
 #undef APSIDES_KERNELS_KEPLER_CORE_INL_H_
