@@ -1,5 +1,7 @@
 #include "test_support.h"
 
+#include <doctest/doctest.h>
+
 #include <array>
 #include <cstdio>
 #include <cstdlib>
@@ -7,6 +9,8 @@
 #include <fstream>
 #include <sys/wait.h>
 #include <unistd.h>
+
+#include "kernels/simd.h"
 
 namespace apsides::test {
 namespace fs = std::filesystem;
@@ -52,6 +56,18 @@ CommandResult run_python(const std::string& code) {
   static int counter = 0;
   const std::string path = write_text(dir, "snippet" + std::to_string(counter++) + ".py", code);
   return run_command("/usr/bin/python3 " + path, false);
+}
+
+void for_each_simd_target(const std::function<void(const std::string& target)>& body) {
+  struct Restore {
+    ~Restore() { kernels::set_simd_target(""); }
+  } restore;  // also when a REQUIRE inside `body` throws
+  for (const std::string& target : kernels::simd_targets()) {
+    REQUIRE(kernels::set_simd_target(target));
+    REQUIRE(kernels::simd_target() == target);
+    INFO("SIMD target " << target);
+    body(target);
+  }
 }
 
 }  // namespace apsides::test

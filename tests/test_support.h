@@ -1,6 +1,7 @@
 // Helpers shared by the test suites.
 #pragma once
 
+#include <functional>
 #include <string>
 #include <vector>
 
@@ -22,5 +23,12 @@ CommandResult run_python(const std::string& code);
 std::string source_dir();
 std::string real_data(const std::string& name);  // tests/data/real/<name> (in the repository)
 std::string apsides_binary();
+
+// Runs `body(target)` once under each SIMD target this binary and CPU can run
+// (kernels/simd.h: "avx512", "avx2", "sse4", "scalar", ...), best first, then puts the
+// start-up target back. Kernel accuracy tests run through it, so each is proved for
+// every instruction set a user's machine might dispatch to. Wrap the body's checks with
+// CAPTURE(target) (the helper adds an INFO line too).
+void for_each_simd_target(const std::function<void(const std::string& target)>& body);
 
 }  // namespace apsides::test
