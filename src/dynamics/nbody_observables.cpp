@@ -104,6 +104,9 @@ NbodyStatus status_of(const WhFlags& flags) {
 std::string failure_message(NbodyStatus status, const PreparedSystem& ps, const WhFlags& flags, double t_days) {
   switch (status) {
     case NbodyStatus::kUnbound:
+      if (flags.drift_planet > 0)
+        return fmt::format("planet {}'s Jacobi orbit became unbound (hyperbolic: ejection or a close encounter) by t = {:.6g}",
+                           ps.order[flags.drift_planet - 1], t_days);
       return fmt::format("a planet's Jacobi orbit became unbound (hyperbolic) by t = {:.6g}", t_days);
     case NbodyStatus::kKeplerFailed:
       return fmt::format("the universal Kepler equation did not converge at t = {:.6g}", t_days);
@@ -307,6 +310,10 @@ void compute_observables(const NbodySystem& system, std::span<const double> rv_t
   const double t0 = system.osculating_epoch_days;
   const double h = nbody_step_days(system, options);
   out.step_days = h;
+  const double p_in = *std::min_element(ps.period, ps.period + n);
+  if (!(h <= 0.5 * p_in))
+    return fail(out, NbodyStatus::kInvalidSystem,
+                fmt::format("step_days = {:.6g}: must be at most half the innermost period ({:.6g} d)", h, p_in));
 
   // Time span to cover: the velocities, and each requested epoch's linear prediction and
   // T_conj (epoch 0 is found there) with one period to spare.

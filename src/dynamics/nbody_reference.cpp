@@ -87,7 +87,10 @@ NbodyStatus check_state(const WhSystem& sys, const State& y, int bodies, WhFlags
   barycentric_to_jacobi(sys, x, rj);
   barycentric_to_jacobi(sys, v, vj);
   for (int k = 1; k < bodies; ++k)
-    if (2.0 * sys.kepler_gm[k] / norm(rj[k]) - dot(vj[k], vj[k]) <= 0.0) return NbodyStatus::kUnbound;
+    if (2.0 * sys.kepler_gm[k] / norm(rj[k]) - dot(vj[k], vj[k]) <= 0.0) {
+      flags.merge(DriftResult::kUnbound, k);
+      return NbodyStatus::kUnbound;
+    }
   return NbodyStatus::kOk;
 }
 

@@ -98,8 +98,12 @@ struct WhFlags {
   DriftResult drift = DriftResult::kOk;
   bool encounter = false;
   int pair_i = 0, pair_j = 0;
-  void merge(DriftResult d) {
-    if (static_cast<int>(d) > static_cast<int>(drift)) drift = d;
+  int drift_planet = 0;  // Jacobi index of the first planet whose drift failed or was unbound
+  void merge(DriftResult d, int k = 0) {
+    if (static_cast<int>(d) > static_cast<int>(drift)) {
+      drift = d;
+      drift_planet = k;
+    }
   }
 };
 

@@ -143,7 +143,7 @@ void interaction_acceleration_tangent(const WhSystem& sys, const Vec3* r, const 
 }
 
 void wh_drift(const WhSystem& sys, WhState& s, double dt, WhFlags& flags) {
-  for (int k = 1; k <= sys.n; ++k) flags.merge(kepler_drift(sys.kepler_gm[k], dt, s.r[k], s.v[k]));
+  for (int k = 1; k <= sys.n; ++k) flags.merge(kepler_drift(sys.kepler_gm[k], dt, s.r[k], s.v[k]), k);
 }
 
 void wh_kick(const WhSystem& sys, WhState& s, double dt, WhFlags& flags) {
@@ -180,7 +180,7 @@ void WhStepper::step_tangent(double h, WhTangent& t, WhFlags& flags) {
     t.dv[k] += half * dacc[k];
   }
   for (int k = 1; k <= n; ++k)
-    flags.merge(kepler_drift_tangent(sys_->kepler_gm[k], h, s_.r[k], s_.v[k], t.dr[k], t.dv[k]));
+    flags.merge(kepler_drift_tangent(sys_->kepler_gm[k], h, s_.r[k], s_.v[k], t.dr[k], t.dv[k]), k);
   interaction_acceleration(*sys_, s_.r, acc_, flags);
   interaction_acceleration_tangent(*sys_, s_.r, t.dr, dacc);
   for (int k = 1; k <= n; ++k) {
