@@ -23,8 +23,9 @@ constexpr double kC3[8] = {1.0 / 6.0,        -1.0 / 120.0,        1.0 / 5040.0, 
                            1.0 / 39916800.0, -1.0 / 6227020800.0, 1.0 / 1307674368000.0, -1.0 / 355687428096000.0};
 }  // namespace
 
-void stumpff_c0123(double z, double c[4]) {
-  if (!(std::fabs(z) < 1e300)) {
+namespace {
+[[gnu::always_inline]] inline void stumpff_core(double z, double c[4]) {
+  if (!(std::fabs(z) < 1e300)) [[unlikely]] {
     c[0] = c[1] = c[2] = c[3] = std::numeric_limits<double>::quiet_NaN();
     return;
   }
@@ -33,7 +34,7 @@ void stumpff_c0123(double z, double c[4]) {
   // c1(4z) = c0 c1, c2(4z) = c1^2 / 2, c3(4z) = (c2 + c0 c3) / 4. A step of P/30 or
   // less gives z < 0.05 for the innermost orbit, so the loop is normally skipped.
   int k = 0;
-  while (std::fabs(z) > 0.1) {
+  while (std::fabs(z) > 0.1) [[unlikely]] {
     z *= 0.25;
     ++k;
   }
@@ -57,6 +58,9 @@ void stumpff_c0123(double z, double c[4]) {
   c[2] = d2;
   c[3] = d3;
 }
+}  // namespace
+
+void stumpff_c0123(double z, double c[4]) { stumpff_core(z, c); }
 
 void stumpff_c45(double z, double c2, double c3, double& c4, double& c5) {
   if (std::fabs(z) < 0.5) {
@@ -90,9 +94,9 @@ struct Universal {
 };
 
 // G0..G3 at X; F = t(X) - dt and its first two derivatives.
-inline void evaluate(const Universal& u, double X, double G[4], double& F, double& Fp, double& Fpp) {
+[[gnu::always_inline]] inline void evaluate(const Universal& u, double X, double G[4], double& F, double& Fp, double& Fpp) {
   double c[4];
-  stumpff_c0123(u.beta * X * X, c);
+  stumpff_core(u.beta * X * X, c);
   G[0] = c[0];
   G[1] = X * c[1];
   G[2] = X * X * c[2];
@@ -105,7 +109,7 @@ inline void evaluate(const Universal& u, double X, double G[4], double& F, doubl
 // Fallback: F is strictly increasing (F' = r > 0), so bracket the root by doubling from
 // X = 0 (F(0) = -dt) and run Newton steps that fall back to bisection whenever they
 // leave the bracket (Press et al., Numerical Recipes, "rtsafe").
-bool solve_bracketed(const Universal& u, double& X, double G[4]) {
+[[gnu::noinline]] bool solve_bracketed(const Universal& u, double& X, double G[4]) {
   double F, Fp, Fpp;
   double lo = 0.0, hi = 0.0;
   const double sign = u.dt > 0.0 ? 1.0 : -1.0;
@@ -142,7 +146,7 @@ bool solve_bracketed(const Universal& u, double& X, double G[4]) {
 }
 
 // Solves t(X) = dt. On success G holds G0..G3 at the root and *irr = 1 / r(X).
-bool solve_universal(const Universal& u, double& X, double G[4], double* irr) {
+[[gnu::always_inline]] inline bool solve_universal(const Universal& u, double& X, double G[4], double* irr) {
   if (u.dt == 0.0) {
     X = 0.0;
     G[0] = 1.0;
