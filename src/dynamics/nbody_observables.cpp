@@ -154,7 +154,6 @@ PassResult wisdom_holman_pass(const PassRequest& rq) {
   const int corrector = opt.corrector_order;
   const double h = rq.h;
   const double hs = rq.direction * h;
-  const double tol = opt.transit_tolerance_days;
   PassResult res;
 
   long long nsteps = static_cast<long long>(std::ceil(rq.span / h));
@@ -217,13 +216,17 @@ PassResult wisdom_holman_pass(const PassRequest& rq) {
       const double g = g_now[j], z = z_now[j];
       const bool crossed = rq.direction > 0 ? (g_prev[j] < 0.0 && g >= 0.0) : (g < 0.0 && g_prev[j] >= 0.0);
       if (crossed && (z < 0.0 || z_prev[j] < 0.0)) {
-        need_real();
-        const double lo = std::min(label_prev, label) - tn, hi = std::max(label_prev, label) - tn;
-        const double guess =
-            first_guess(label_prev2 - tn, g_prev2[j], label_prev - tn, g_prev[j], label - tn, g, lo, hi);
-        double tau, zc;
-        if (refine_conjunction(sys, real, acc_real, j + 1, guess, lo, hi, tol, tau, zc, flags) && zc < 0.0)
-          rq.transits[j].push_back(rq.t0 + (tn + tau));
+        Detection d;
+        d.tn = tn;
+        d.lo = std::min(label_prev, label) - tn;
+        d.hi = std::max(label_prev, label) - tn;
+        d.guess = first_guess(label_prev2 - tn, g_prev2[j], label_prev - tn, g_prev[j], label - tn, g, d.lo, d.hi);
+        d.approx_time = rq.t0 + (tn + d.guess);
+        d.state = rq.state_pool->size();
+        const WhState& st = stepper.state();
+        rq.state_pool->insert(rq.state_pool->end(), st.r + 1, st.r + n + 1);
+        rq.state_pool->insert(rq.state_pool->end(), st.v + 1, st.v + n + 1);
+        rq.detections[j].push_back(d);
       }
       g_prev2[j] = g_prev[j];
       g_prev[j] = g;
@@ -242,6 +245,26 @@ PassResult wisdom_holman_pass(const PassRequest& rq) {
   return res;
 }
 
+bool refine_detection(const PreparedSystem& ps, const NbodyOptions& options, double h, int j, const Detection& d,
+                      const std::vector<Vec3>& pool, double t0, double& t_out, WhFlags& flags) {
+  const WhSystem& sys = ps.sys;
+  const int n = sys.n;
+  WhState real;
+  for (int k = 1; k <= n; ++k) {
+    real.r[k] = pool[d.state + static_cast<std::size_t>(k - 1)];
+    real.v[k] = pool[d.state + static_cast<std::size_t>(n + k - 1)];
+  }
+  if (options.corrector_order != 0) corrector_to_real(sys, real, h, options.corrector_order, flags);
+  Vec3 acc[kMaxBodies];
+  interaction_acceleration(sys, real.r, acc, flags);
+  double tau, z;
+  if (!refine_conjunction(sys, real, acc, j + 1, d.guess, d.lo, d.hi, options.transit_tolerance_days, tau, z, flags) ||
+      !(z < 0.0))
+    return false;
+  t_out = t0 + (d.tn + tau);
+  return true;
+}
+
 }  // namespace dynamics
 
 namespace {
@@ -249,8 +272,10 @@ namespace {
 using dynamics::kMaxPlanets;
 
 struct Scratch {
-  std::vector<std::size_t> order, forward_rv, backward_rv;
+  std::vector<std::size_t> order, forward_rv, backward_rv, index;
   std::vector<double> forward[kMaxPlanets], backward[kMaxPlanets], merged;
+  std::vector<dynamics::Detection> forward_det[kMaxPlanets], backward_det[kMaxPlanets], merged_det;
+  std::vector<dynamics::Vec3> pool;
 };
 
 Scratch& scratch() {
@@ -265,9 +290,10 @@ void fail(NbodyObservables& out, NbodyStatus status, std::string message) {
   for (auto& v : out.transit_times_days) std::fill(v.begin(), v.end(), std::numeric_limits<double>::quiet_NaN());
 }
 
-// Matches the collected conjunctions of one planet to its requested epochs (nbody.h).
+// Matches the conjunctions of one planet (times in order, approximate are fine) to its
+// requested epochs (nbody.h): index[k] is the conjunction of epochs[k].
 bool match_epochs(const std::vector<double>& all, double t_conj, double period, const std::vector<long long>& epochs,
-                  std::vector<double>& out, std::string& message, int planet) {
+                  std::vector<std::size_t>& index, std::string& message, int planet) {
   if (all.empty()) {
     message = fmt::format("planet {}: no transit (sky-plane conjunction) found in the integrated span", planet);
     return false;
@@ -298,8 +324,9 @@ bool match_epochs(const std::vector<double>& all, double t_conj, double period, 
       return false;
     }
   }
+  index.resize(epochs.size());
   for (std::size_t k = 0; k < epochs.size(); ++k)
-    out[k] = all[static_cast<std::size_t>(static_cast<long long>(i0) + epochs[k])];
+    index[k] = static_cast<std::size_t>(static_cast<long long>(i0) + epochs[k]);
   return true;
 }
 
@@ -384,7 +411,11 @@ void compute_observables(const NbodySystem& system, std::span<const double> rv_t
   for (int j = 0; j < n; ++j) {
     sc.forward[j].clear();
     sc.backward[j].clear();
+    sc.forward_det[j].clear();
+    sc.backward_det[j].clear();
   }
+  sc.pool.clear();
+
 
   dynamics::PassRequest rq;
   rq.ps = &ps;
@@ -401,6 +432,8 @@ void compute_observables(const NbodySystem& system, std::span<const double> rv_t
     rq.rv_index = dir > 0 ? sc.forward_rv.data() : sc.backward_rv.data();
     rq.rv_count = dir > 0 ? sc.forward_rv.size() : sc.backward_rv.size();
     rq.transits = dir > 0 ? sc.forward : sc.backward;
+    rq.detections = dir > 0 ? sc.forward_det : sc.backward_det;
+    rq.state_pool = &sc.pool;
     if (rq.span <= 0.0 && rq.rv_count == 0) continue;
     const dynamics::PassResult r = reference ? dynamics::reference_pass(rq) : dynamics::wisdom_holman_pass(rq);
     out.steps += r.steps;
@@ -410,12 +443,34 @@ void compute_observables(const NbodySystem& system, std::span<const double> rv_t
   for (int j = 0; j < n; ++j) {
     if (!wants[j]) continue;
     const auto p = static_cast<std::size_t>(ps.order[j]);
-    sc.merged.assign(sc.backward[j].rbegin(), sc.backward[j].rend());
-    sc.merged.insert(sc.merged.end(), sc.forward[j].begin(), sc.forward[j].end());
+    // Conjunctions in time order: the backward pass's reversed, then the forward pass's.
+    if (reference) {
+      sc.merged.assign(sc.backward[j].rbegin(), sc.backward[j].rend());
+      sc.merged.insert(sc.merged.end(), sc.forward[j].begin(), sc.forward[j].end());
+    } else {
+      sc.merged_det.assign(sc.backward_det[j].rbegin(), sc.backward_det[j].rend());
+      sc.merged_det.insert(sc.merged_det.end(), sc.forward_det[j].begin(), sc.forward_det[j].end());
+      sc.merged.clear();
+      for (const dynamics::Detection& d : sc.merged_det) sc.merged.push_back(d.approx_time);
+    }
     std::string message;
     if (!match_epochs(sc.merged, system.planets[p].t_conj_days, system.planets[p].period_days, transit_epochs[p],
-                      out.transit_times_days[p], message, static_cast<int>(p)))
+                      sc.index, message, static_cast<int>(p)))
       return fail(out, NbodyStatus::kEpochNotReached, message);
+    for (std::size_t k = 0; k < sc.index.size(); ++k) {
+      if (reference) {
+        out.transit_times_days[p][k] = sc.merged[sc.index[k]];
+        continue;
+      }
+      dynamics::WhFlags flags;
+      double t;
+      if (!dynamics::refine_detection(ps, options, h, j, sc.merged_det[sc.index[k]], sc.pool, t0, t, flags))
+        return fail(out, NbodyStatus::kEpochNotReached,
+                    fmt::format("planet {}: the conjunction of epoch {} near t = {:.6f} is not a transit (planet "
+                                "behind the star) or could not be refined",
+                                p, transit_epochs[p][k], sc.merged_det[sc.index[k]].approx_time));
+      out.transit_times_days[p][k] = t;
+    }
   }
   out.status = NbodyStatus::kOk;
   out.message.clear();

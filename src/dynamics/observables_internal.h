@@ -14,6 +14,15 @@ namespace apsides::dynamics {
 
 inline constexpr double kMetresPerSecondPerAuPerDay = 149597870700.0 / 86400.0;  // kAu / kDay
 
+// A conjunction seen between two steps of the WH map, kept for refinement after the epochs
+// are counted (only requested epochs are refined).
+struct Detection {
+  double approx_time;   // first guess (days, absolute): enough to count and match epochs
+  double tn;            // grid time of the stored state, relative to t0
+  double guess, lo, hi; // first guess and detection bracket, relative to tn
+  std::size_t state;    // offset of the stored mapping state (r then v of planets 1..n) in the pool
+};
+
 struct PassRequest {
   const PreparedSystem* ps = nullptr;
   const NbodyOptions* options = nullptr;
@@ -26,8 +35,16 @@ struct PassRequest {
   const std::size_t* rv_index = nullptr; // this pass's velocity times, in the pass's time order
   std::size_t rv_count = 0;
   double* rv_out = nullptr;              // m/s, indexed like rv_times
-  std::vector<double>* transits = nullptr;  // per Jacobi index: conjunction times in the pass's time order
+  std::vector<double>* transits = nullptr;  // reference pass: per Jacobi index, refined conjunction times
+  std::vector<Detection>* detections = nullptr;  // WH pass: per Jacobi index, detections in time order
+  std::vector<Vec3>* state_pool = nullptr;       // WH pass: stored mapping states of the detections
 };
+
+// Refines a WH detection of planet j (Jacobi index 0-based): real state from the stored
+// mapping state, Newton's method on g. Returns false if the conjunction is behind the star
+// or the refinement failed; t_out is absolute.
+bool refine_detection(const PreparedSystem& ps, const NbodyOptions& options, double h, int j, const Detection& d,
+                      const std::vector<Vec3>& pool, double t0, double& t_out, WhFlags& flags);
 
 struct PassResult {
   NbodyStatus status = NbodyStatus::kOk;
