@@ -61,8 +61,8 @@
 //   A transit (mid-transit) is a sky-plane conjunction: the time at which the star–planet
 //   separation projected on the sky, s = (x, y) = (x_p - x_star, y_p - y_star), reaches
 //   a minimum with the planet in front, i.e. g(t) = x vx + y vy crosses zero upwards and
-//   z_p - z_star < 0. Crossings are detected from one step to the next and refined by
-//   Newton's method on g (first guess: the parabola through the last three values of g),
+//   z_p - z_star < 0. Crossings are detected from one step to the next (the map state is
+//   kept), counted, and only those of requested epochs are refined, by Newton's method on g (first guess: the parabola through the last three values of g),
 //   each iterate a partial integrator step from the nearest (corrected) state on the step
 //   grid; it stops once the remaining error, estimated from the last update, is below
 //   transit_tolerance_days (default 1e-8 d); scipy's DOP853 agrees to ~0.1 s (tests).

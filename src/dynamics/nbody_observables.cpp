@@ -330,6 +330,71 @@ bool match_epochs(const std::vector<double>& all, double t_conj, double period, 
   return true;
 }
 
+// Time span to cover: the velocities, and each requested epoch's linear prediction and
+// T_conj (epoch 0 is found there) with one period to spare; which planets need transits.
+void plan_span(const NbodySystem& system, const dynamics::PreparedSystem& ps, std::span<const double> rv_times,
+               const std::vector<std::vector<long long>>& transit_epochs, double& t_lo, double& t_hi, bool* wants) {
+  for (double t : rv_times) {
+    t_lo = std::min(t_lo, t);
+    t_hi = std::max(t_hi, t);
+  }
+  for (int j = 0; j < ps.sys.n; ++j) {
+    const auto p = static_cast<std::size_t>(ps.order[j]);
+    wants[j] = false;
+    if (p >= transit_epochs.size() || transit_epochs[p].empty()) continue;
+    wants[j] = true;
+    const NbodyPlanet& pl = system.planets[p];
+    long long emin = 0, emax = 0;
+    for (long long e : transit_epochs[p]) {
+      emin = std::min(emin, e);
+      emax = std::max(emax, e);
+    }
+    t_lo = std::min(t_lo, pl.t_conj_days + static_cast<double>(emin - 1) * pl.period_days);
+    t_hi = std::max(t_hi, pl.t_conj_days + static_cast<double>(emax + 1) * pl.period_days);
+  }
+}
+
+// Transit times of the requested epochs of every planet from the passes' conjunctions:
+// counted and matched (match_epochs), then (WH) refined. "" or the failure message.
+std::string fill_transits(const NbodySystem& system, const dynamics::PreparedSystem& ps, const NbodyOptions& options,
+                          double h, const std::vector<std::vector<long long>>& transit_epochs, const bool* wants,
+                          Scratch& sc, NbodyObservables& out) {
+  const bool reference = options.integrator == NbodyIntegrator::kReference;
+  const double t0 = system.osculating_epoch_days;
+  for (int j = 0; j < ps.sys.n; ++j) {
+    if (!wants[j]) continue;
+    const auto p = static_cast<std::size_t>(ps.order[j]);
+    // Conjunctions in time order: the backward pass's reversed, then the forward pass's.
+    if (reference) {
+      sc.merged.assign(sc.backward[j].rbegin(), sc.backward[j].rend());
+      sc.merged.insert(sc.merged.end(), sc.forward[j].begin(), sc.forward[j].end());
+    } else {
+      sc.merged_det.assign(sc.backward_det[j].rbegin(), sc.backward_det[j].rend());
+      sc.merged_det.insert(sc.merged_det.end(), sc.forward_det[j].begin(), sc.forward_det[j].end());
+      sc.merged.clear();
+      for (const dynamics::Detection& d : sc.merged_det) sc.merged.push_back(d.approx_time);
+    }
+    std::string message;
+    if (!match_epochs(sc.merged, system.planets[p].t_conj_days, system.planets[p].period_days, transit_epochs[p],
+                      sc.index, message, static_cast<int>(p)))
+      return message;
+    for (std::size_t k = 0; k < sc.index.size(); ++k) {
+      if (reference) {
+        out.transit_times_days[p][k] = sc.merged[sc.index[k]];
+        continue;
+      }
+      dynamics::WhFlags flags;
+      double t;
+      if (!dynamics::refine_detection(ps, options, h, j, sc.merged_det[sc.index[k]], sc.pool, t0, t, flags))
+        return fmt::format("planet {}: the conjunction of epoch {} near t = {:.6f} is not a transit (planet behind the "
+                           "star) or could not be refined",
+                           p, transit_epochs[p][k], sc.merged_det[sc.index[k]].approx_time);
+      out.transit_times_days[p][k] = t;
+    }
+  }
+  return "";
+}
+
 }  // namespace
 
 NbodyObservables compute_observables(const NbodySystem& system, std::span<const double> rv_times_days,
@@ -370,27 +435,9 @@ void compute_observables(const NbodySystem& system, std::span<const double> rv_t
     return fail(out, NbodyStatus::kInvalidSystem,
                 fmt::format("step_days = {:.6g}: must be at most half the innermost period ({:.6g} d)", h, p_in));
 
-  // Time span to cover: the velocities, and each requested epoch's linear prediction and
-  // T_conj (epoch 0 is found there) with one period to spare.
   double t_lo = t0, t_hi = t0;
-  for (double t : rv_times_days) {
-    t_lo = std::min(t_lo, t);
-    t_hi = std::max(t_hi, t);
-  }
   bool wants[kMaxPlanets] = {};
-  for (int j = 0; j < n; ++j) {
-    const auto p = static_cast<std::size_t>(ps.order[j]);
-    if (p >= transit_epochs.size() || transit_epochs[p].empty()) continue;
-    wants[j] = true;
-    const NbodyPlanet& pl = system.planets[p];
-    long long emin = 0, emax = 0;
-    for (long long e : transit_epochs[p]) {
-      emin = std::min(emin, e);
-      emax = std::max(emax, e);
-    }
-    t_lo = std::min(t_lo, pl.t_conj_days + static_cast<double>(emin - 1) * pl.period_days);
-    t_hi = std::max(t_hi, pl.t_conj_days + static_cast<double>(emax + 1) * pl.period_days);
-  }
+  plan_span(system, ps, rv_times_days, transit_epochs, t_lo, t_hi, wants);
   const double total_steps = std::ceil((t_hi - t0) / h) + std::ceil((t0 - t_lo) / h);
   if (!(total_steps <= static_cast<double>(options.max_steps)))
     return fail(out, NbodyStatus::kTooManySteps,
@@ -416,7 +463,6 @@ void compute_observables(const NbodySystem& system, std::span<const double> rv_t
   }
   sc.pool.clear();
 
-
   dynamics::PassRequest rq;
   rq.ps = &ps;
   rq.options = &options;
@@ -440,38 +486,8 @@ void compute_observables(const NbodySystem& system, std::span<const double> rv_t
     if (r.status != NbodyStatus::kOk) return fail(out, r.status, r.message);
   }
 
-  for (int j = 0; j < n; ++j) {
-    if (!wants[j]) continue;
-    const auto p = static_cast<std::size_t>(ps.order[j]);
-    // Conjunctions in time order: the backward pass's reversed, then the forward pass's.
-    if (reference) {
-      sc.merged.assign(sc.backward[j].rbegin(), sc.backward[j].rend());
-      sc.merged.insert(sc.merged.end(), sc.forward[j].begin(), sc.forward[j].end());
-    } else {
-      sc.merged_det.assign(sc.backward_det[j].rbegin(), sc.backward_det[j].rend());
-      sc.merged_det.insert(sc.merged_det.end(), sc.forward_det[j].begin(), sc.forward_det[j].end());
-      sc.merged.clear();
-      for (const dynamics::Detection& d : sc.merged_det) sc.merged.push_back(d.approx_time);
-    }
-    std::string message;
-    if (!match_epochs(sc.merged, system.planets[p].t_conj_days, system.planets[p].period_days, transit_epochs[p],
-                      sc.index, message, static_cast<int>(p)))
-      return fail(out, NbodyStatus::kEpochNotReached, message);
-    for (std::size_t k = 0; k < sc.index.size(); ++k) {
-      if (reference) {
-        out.transit_times_days[p][k] = sc.merged[sc.index[k]];
-        continue;
-      }
-      dynamics::WhFlags flags;
-      double t;
-      if (!dynamics::refine_detection(ps, options, h, j, sc.merged_det[sc.index[k]], sc.pool, t0, t, flags))
-        return fail(out, NbodyStatus::kEpochNotReached,
-                    fmt::format("planet {}: the conjunction of epoch {} near t = {:.6f} is not a transit (planet "
-                                "behind the star) or could not be refined",
-                                p, transit_epochs[p][k], sc.merged_det[sc.index[k]].approx_time));
-      out.transit_times_days[p][k] = t;
-    }
-  }
+  if (std::string why = fill_transits(system, ps, options, h, transit_epochs, wants, sc, out); !why.empty())
+    return fail(out, NbodyStatus::kEpochNotReached, why);
   out.status = NbodyStatus::kOk;
   out.message.clear();
 }
