@@ -51,7 +51,7 @@ struct NbodyPropagator::Impl {
 };
 
 NbodyPropagator::NbodyPropagator(const CartesianState& start, double step_days, const NbodyOptions& options)
-    : impl_(new Impl) {
+    : impl_(std::make_unique<Impl>()) {
   Impl& m = *impl_;
   m.options = options;
   m.n = static_cast<int>(start.mass_msun.size()) - 1;
@@ -102,7 +102,7 @@ NbodyPropagator::NbodyPropagator(const CartesianState& start, double step_days, 
   m.stepper.reset(&m.sys, y);
 }
 
-NbodyPropagator::~NbodyPropagator() { delete impl_; }
+NbodyPropagator::~NbodyPropagator() = default;
 
 double NbodyPropagator::time_days() const { return impl_->t_cur; }
 
