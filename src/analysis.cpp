@@ -79,9 +79,9 @@ KeptSamples read_kept(const ResultsFile& f, std::size_t max_samples) {
   const long burn = f.has_attribute("/chains", "burn_in_steps") ? static_cast<long>(f.int_attribute("/chains", "burn_in_steps")) : steps / 2;
   const int walkers = f.chain_walkers();
   k.dim = f.chain_dim();
-  const long kept_steps = std::max<long>(1, steps - burn);
-  const long stride = std::max<long>(1, static_cast<long>(static_cast<std::size_t>(kept_steps) * static_cast<std::size_t>(walkers) / max_samples));
-  k.theta = f.read_chain_rows(burn + 1, steps, stride);
+  (void)walkers;
+  const ResultsFile::StepSelection sel = f.select_steps(burn, steps, max_samples);  // stored steps after burn-in
+  k.theta = sel.rows ? f.read_chain_rows(sel.first, sel.last, sel.stride) : std::vector<double>{};
   k.rows = k.theta.size() / k.dim;
   k.median.resize(k.dim);
   std::vector<double> col(k.rows);
@@ -357,8 +357,9 @@ std::vector<std::string> write_run_figures(const ResultsFile& file, const std::s
   // (4) Trace plots of the sampled parameters (at most 12 per figure).
   {
     const long steps = file.chain_steps();
-    const long stride = std::max<long>(1, steps / 1500);
-    const std::vector<double> rows = file.read_chain_rows(1, steps, stride);
+    const ResultsFile::StepSelection sel = file.select_steps(0, steps, 1500 * static_cast<std::size_t>(file.chain_walkers()));
+    const long stride = sel.stride;
+    const std::vector<double> rows = file.read_chain_rows(sel.first, sel.last, stride);
     const std::size_t nw = static_cast<std::size_t>(file.chain_walkers()), dim = kept.dim;
     const std::size_t n_rows = rows.size() / (nw * dim);
     const long burn = file.has_attribute("/chains", "burn_in_steps") ? static_cast<long>(file.int_attribute("/chains", "burn_in_steps")) : steps / 2;
@@ -731,7 +732,9 @@ AnalysisOutcome run_analysis(const Project& project, const AnalysisOptions& opti
     }
   }
   md << "## Convergence\n\n```\n" << summary.FullReport() << "```\n\n";
-  md << fmt::format("![traces](figures/traces{})\n\n", figure_extension(options.format));
+  for (const auto& f : report_figures)  // one trace figure per 12 parameters (traces.png, or traces_1.png, ...)
+    if (const std::string n = fs::path(f).filename().string(); n.rfind("traces", 0) == 0)
+      md << fmt::format("![{}](figures/{})\n\n", fs::path(n).stem().string(), n);
   md << "## Priors\n\n";
   for (const auto& pr : file->read_strings("/parameters/priors")) md << "- " << pr << "\n";
   md << "\n## Cautions\n\n";

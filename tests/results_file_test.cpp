@@ -28,7 +28,7 @@ TEST_SUITE("results_file") {
       f.write_velocity_data(d);
       f.write_project_text("[[velocities]]\nfile = \"rv.csv\"\n");
       f.write_parameters({"a", "b", "c"}, {"d", "m/s", ""}, {"uniform(0, 1)", "normal(0, 1)", "uniform(-1, 1)"});
-      f.create_chains(walkers, dim, 42, "test");
+      f.create_chains(walkers, dim, 42, "test", 1);
       std::vector<std::vector<double>> pos, lp;
       for (int s = 0; s < 5; ++s) {
         std::vector<double> row(walkers * dim), l(walkers);
@@ -161,11 +161,12 @@ TEST_SUITE("results_file") {
     const std::string steps = "12000";
     const auto full = apsides::test::run_command(bin + " sample " + project + " --out " + dir + "/full.h5 --quiet --max-steps " + steps);
     REQUIRE_MESSAGE(full.status == 0, full.output);
-    // Start the same run, kill -9 it once the file has grown past a few checkpoints.
+    // Start the same run, kill -9 it once the file has grown past a few checkpoints (2 MB:
+    // the stored rows are compressed, the off-stride diagnostic rows are not).
     const std::string killer =
         "cd " + dir + " && (" + bin + " sample " + project + " --out killed.h5 --quiet --max-steps " + steps +
         " > /dev/null 2>&1 & pid=$!; "
-        "while kill -0 $pid 2>/dev/null && [ $(stat -c%s killed.h5 2>/dev/null || echo 0) -lt 8000000 ]; do sleep 0.02; done; "
+        "while kill -0 $pid 2>/dev/null && [ $(stat -c%s killed.h5 2>/dev/null || echo 0) -lt 2000000 ]; do sleep 0.02; done; "
         "kill -9 $pid 2>/dev/null && echo killed; wait $pid 2>/dev/null; true)";
     const auto k = apsides::test::run_command(killer);
     REQUIRE_MESSAGE(k.output.find("killed") != std::string::npos, "the run finished before it could be killed");
@@ -208,5 +209,129 @@ TEST_SUITE("results_file") {
         "    if not (q['median'] - 2 * q['minus'] <= ti['offset_ms'] <= q['median'] + 2 * q['plus']): bad.append((si['name'], ti['offset_ms'], q))\n"
         "print(bad)\n");
     CHECK(check.output == "[]\n");
+  }
+}
+
+namespace {
+// The sampler streaming into a ResultsFile through a ChainWriter, as sample_project does.
+class WriterObserver : public apsides::SamplerObserver {
+ public:
+  WriterObserver(ResultsFile& f, std::size_t diagnostic_rows) : writer_(f, diagnostic_rows) {}
+  void on_step(long step, std::span<const double> p, std::span<const double> lp) override { writer_.add_step(step, p, lp); }
+  void on_checkpoint(const apsides::SamplerState& s) override { writer_.checkpoint(s); }
+
+ private:
+  apsides::ChainWriter writer_;
+};
+
+// An anisotropic Gaussian in 3-D (sd 1, 2, 0.5): cheap, and converges in a few thousand steps.
+double gaussian3(std::span<const double> x) {
+  return -0.5 * (x[0] * x[0] + x[1] * x[1] / 4.0 + x[2] * x[2] / 0.25);
+}
+
+apsides::SamplerOptions small_run_options() {
+  apsides::SamplerOptions o;
+  o.walkers = 8;
+  o.max_steps = 6000;
+  o.min_steps = 200;
+  o.check_every_steps = 100;
+  o.checkpoint_steps = 50;
+  o.diagnostic_rows = 16;  // the diagnostics' thinning passes the stride 16 at step 264
+  o.ess_target = 150;
+  o.rhat_max = 1.05;
+  o.min_tau_multiple = 10;
+  o.seed = 31;
+  o.threads = 1;
+  return o;
+}
+
+apsides::SamplerState small_start() {
+  apsides::SamplerState s;
+  for (int w = 0; w < 8; ++w)
+    for (int d = 0; d < 3; ++d) s.positions.push_back(0.1 * apsides::sampler_uniform(5, -1, w, d) - 0.05);
+  return s;
+}
+
+// Runs (or resumes, when the file exists) up to max_steps; returns the sampler result.
+apsides::SamplerResult run_into(const std::string& path, long max_steps, bool resume) {
+  apsides::SamplerOptions o = small_run_options();
+  o.max_steps = max_steps;
+  const apsides::LogDensity f = gaussian3;
+  ResultsFile file(path, resume ? ResultsFile::Mode::kReadWrite : ResultsFile::Mode::kCreate);
+  apsides::SamplerState start = small_start();
+  std::vector<std::vector<double>> rows;
+  if (resume) {
+    start = file.read_checkpoint();
+    for (long s : apsides::diagnostic_steps(start.step, o.diagnostic_rows)) rows.push_back(file.read_chain_row(s));
+  } else {
+    file.create_chains(o.walkers, 3, o.seed, "test");  // default stride (16)
+  }
+  WriterObserver obs(file, o.diagnostic_rows);
+  return apsides::run_sampler(f, 3, o, start, &obs, resume ? &rows : nullptr);
+}
+}  // namespace
+
+TEST_SUITE("results_file") {
+  TEST_CASE("results_file: a run stopped at any checkpoint and resumed ends where an uninterrupted one does, bitwise") {
+    // Stops before, at and after the point where the off-stride diagnostic rows stop being
+    // needed (step 264 with diagnostic_rows = 16 and stride 16), and after slots were reused.
+    const std::string dir = apsides::test::temp_dir("results_file_resume_points");
+    const auto full = run_into(dir + "/full.h5", 6000, false);
+    REQUIRE(full.converged());
+    REQUIRE(full.steps < 6000);
+    ResultsFile ref(dir + "/full.h5", ResultsFile::Mode::kReadOnly);
+    CHECK(ref.chain_stride() == apsides::kDefaultChainStride);
+    CHECK_FALSE(ref.exists("/chains/state/diagnostic_rows"));  // removed once not needed
+    const auto ref_rows = ref.read_chain_rows(16, ref.chain_steps(), 16);
+    std::vector<double> ref_lp;
+    (void)ref.read_chain_rows(16, ref.chain_steps(), 16, &ref_lp);
+    for (long stop : {100L, 250L, 300L, 1000L}) {
+      CAPTURE(stop);
+      const std::string path = dir + "/stopped_" + std::to_string(stop) + ".h5";
+      run_into(path, stop, false);
+      {
+        ResultsFile mid(path, ResultsFile::Mode::kReadOnly);
+        CHECK(mid.chain_steps() == stop);
+        // Before step 264 the diagnostics use rows off the stride: they are in the slots.
+        CHECK(mid.exists("/chains/state/diagnostic_rows") == (stop < 264));
+      }
+      const auto resumed = run_into(path, 6000, true);
+      CHECK(resumed.steps == full.steps);
+      CHECK(resumed.rhat_max == full.rhat_max);
+      CHECK(resumed.ess_min == full.ess_min);
+      ResultsFile got(path, ResultsFile::Mode::kReadOnly);
+      CHECK(got.chain_steps() == ref.chain_steps());
+      std::vector<double> lp;
+      CHECK(got.read_chain_rows(16, got.chain_steps(), 16, &lp) == ref_rows);
+      CHECK(lp == ref_lp);
+      CHECK(got.read_vector("/chains/state/positions") == ref.read_vector("/chains/state/positions"));
+    }
+  }
+
+  TEST_CASE("results_file: stored steps, their selection and an unstored step") {
+    const std::string dir = apsides::test::temp_dir("results_file_stride");
+    run_into(dir + "/run.h5", 400, false);
+    ResultsFile f(dir + "/run.h5", ResultsFile::Mode::kReadOnly);
+    CHECK(f.chain_steps() == 400);
+    CHECK(f.shape("/chains/positions") == std::vector<std::size_t>{25, 8, 3});
+    CHECK(f.read_ints("/chains/step") == [] {
+      std::vector<long long> v;
+      for (long long s = 16; s <= 400; s += 16) v.push_back(s);
+      return v;
+    }());
+    // After a burn-in of 200 steps: stored steps 208 ... 400, all of them when they fit.
+    const auto all = f.select_steps(200, 400, 1000);
+    CHECK(all.first == 208);
+    CHECK(all.last == 400);
+    CHECK(all.stride == 16);
+    CHECK(all.rows == 13);
+    // At most 50 draws (8 walkers): every 3rd stored step, 5 rows.
+    const auto few = f.select_steps(200, 400, 50);
+    CHECK(few.stride == 48);
+    CHECK(few.rows == 5);
+    CHECK(few.rows * 8 <= 50);
+    CHECK(f.read_chain_rows(few.first, few.last, few.stride).size() == 5 * 8 * 3);
+    CHECK_THROWS_AS(f.read_chain_row(17), apsides::InputError);
+    CHECK_THROWS_AS(f.read_chain_rows(1, 400, 1), apsides::InputError);
   }
 }
