@@ -3,6 +3,9 @@
 #include <doctest/doctest.h>
 
 #include <cmath>
+#include <map>
+#include <nlohmann/json.hpp>
+#include <regex>
 
 #include "apsides/error.h"
 #include "apsides/posterior.h"
@@ -138,6 +141,115 @@ TEST_SUITE("results_file") {
 }
 
 namespace {
+const std::string kNum = "(-?[0-9]+\\.?[0-9]*(?:e[-+][0-9]+)?)";
+
+std::vector<std::smatch> matches(const std::string& text, const std::regex& re) {
+  std::vector<std::smatch> out;
+  for (std::sregex_iterator it(text.begin(), text.end(), re), end; it != end; ++it) out.push_back(*it);
+  return out;
+}
+
+void same(const std::string& what, const nlohmann::json& value, const std::string& printed) {
+  INFO(what, ": JSON ", value.dump(), ", printed ", printed);
+  REQUIRE(value.is_number());
+  CHECK(apsides::test::agrees_to_printed(value.get<double>(), printed));
+}
+
+// `sample` prints its JSON's sampler numbers (the output contract).
+void sample_contract(const std::string& text, const std::string& json_text) {
+  const auto j = nlohmann::json::parse(json_text)["sampler"];
+  const auto m = matches(text, std::regex("([a-z_ ]+): ([0-9]+) steps x ([0-9]+) walkers \\(burn-in ([0-9]+) discarded\\), "
+                                          "R-hat max " + kNum + ", ESS min " + kNum + ", tau max " + kNum));
+  REQUIRE_MESSAGE(m.size() == 1, text);
+  CHECK(m[0][1].str() == j["termination"].get<std::string>());
+  CHECK(std::stol(m[0][2]) == j["steps"].get<long>());
+  CHECK(std::stoi(m[0][3]) == j["walkers"].get<int>());
+  CHECK(std::stol(m[0][4]) == j["burn_in_steps"].get<long>());
+  same("rhat_max", j["rhat_max"], m[0][5]);
+  same("ess_min", j["ess_min"], m[0][6]);
+  same("tau_max", j["tau_max"], m[0][7]);
+  CHECK(apsides::test::per_parameter_length_mismatches(json_text).empty());
+}
+
+// `summarize` prints its JSON's medians and intervals, sampler and data numbers.
+void summarize_contract(const std::string& text, const std::string& json_text) {
+  const auto j = nlohmann::json::parse(json_text);
+  std::map<std::string, std::smatch> row;
+  for (const auto& m : matches(text, std::regex("\\n  ([A-Za-z0-9_.]+) +" + kNum + " \\+([0-9.e+-]+) -([0-9.e+-]+)")))
+    row.emplace(m[1].str(), m);
+  auto quantity = [&](const std::string& name, const nlohmann::json& q) {
+    if (q.is_null()) return;
+    CAPTURE(name);
+    REQUIRE(row.count(name) == 1);
+    const auto& m = row.at(name);
+    // format_with_uncertainty rounds the median to the uncertainty's last digit.
+    const double unit = std::min(apsides::test::half_last_digit(m[3]), apsides::test::half_last_digit(m[4]));
+    CHECK(std::fabs(q["median"].get<double>() - std::stod(m[2])) <= std::max(unit, apsides::test::half_last_digit(m[2])) * (1 + 1e-9));
+    same(name + " plus", q["plus"], m[3]);
+    same(name + " minus", q["minus"], m[4]);
+  };
+  std::size_t checked = 0;
+  for (const auto& p : j["planets"])
+    for (const auto& [k, q] : p.items())
+      if (k != "label") {
+        quantity(p["label"].get<std::string>() + "." + k, q);
+        ++checked;
+      }
+  for (const auto& in : j["instruments"]) {
+    quantity(in["name"].get<std::string>() + ".offset_ms", in["offset_ms"]);
+    quantity(in["name"].get<std::string>() + ".jitter_ms", in["jitter_ms"]);
+  }
+  CHECK(checked >= 20);
+  const auto s = matches(text, std::regex("Sampler: ([0-9]+) walkers x ([0-9]+) steps, first ([0-9]+) discarded"));
+  REQUIRE(s.size() == 1);
+  CHECK(std::stoi(s[0][1]) == j["sampler"]["walkers"].get<int>());
+  CHECK(std::stol(s[0][2]) == j["sampler"]["steps"].get<long>());
+  CHECK(std::stol(s[0][3]) == j["sampler"]["burn_in_steps"].get<long>());
+  const auto c = matches(text, std::regex("Convergence: R-hat max " + kNum + ", ESS min " + kNum + ", tau max " + kNum));
+  REQUIRE(c.size() == 1);
+  same("rhat_max", j["sampler"]["rhat_max"], c[0][1]);
+  same("ess_min", j["sampler"]["ess_min"], c[0][2]);
+  same("tau_max", j["sampler"]["tau_max"], c[0][3]);
+  const auto d = matches(text, std::regex("Data: ([0-9]+) velocities from ([0-9]+) instrument\\(s\\), baseline " + kNum + " d"));
+  REQUIRE(d.size() == 1);
+  CHECK(std::stoi(d[0][1]) == j["data"]["n_points"].get<int>());
+  CHECK(std::stoul(d[0][2]) == j["data"]["instruments"].size());
+  same("baseline_d", j["data"]["baseline_d"], d[0][3]);
+  CHECK(apsides::test::per_parameter_length_mismatches(json_text).empty());
+}
+
+// Every per-parameter dataset of the results file has one row per parameter, in the order
+// of /parameters/names (read by h5py, outside apsides).
+// /parameters/priors is not checked yet: its rows are not one per parameter until the
+// parameter descriptions are rebuilt (issue 20 item 3, the lead's refactor); for two
+// planets it even has 16 rows for 16 parameters, misaligned (one eccentricity row covers
+// secosw and sesinw, two notes close the list). The checks to add then, in the Python below:
+//   assert len(f['parameters/priors']) == n
+//   assert all(p.decode().split()[0] == name for p, name in zip(f['parameters/priors'][()], names))
+void per_parameter_datasets(const std::string& path) {
+  const auto r = apsides::test::run_python(
+      "import h5py\n"
+      "f = h5py.File('" + path + "', 'r')\n"
+      "names = [s.decode() for s in f['parameters/names'][()]]\n"
+      "n = len(names)\n"
+      "assert n == 16, names\n"
+      "assert len(set(names)) == n\n"
+      "assert len(f['parameters/units']) == n\n"
+      "assert f['map/theta'].shape == (n,)\n"
+      "assert f['chains/positions'].shape[2] == n\n"
+      "assert f['chains/state/positions'].shape[1] == n\n"
+      "for k in ['rhat', 'ess_bulk', 'ess_tail', 'tau']:\n"
+      "    assert f['diagnostics/' + k].shape == (n,), k\n"
+      "assert [s.decode() for s in f['diagnostics/names'][()]] == names\n"
+      "w = int(f['chains'].attrs['walkers']); stride = int(f['chains'].attrs['stride'])\n"
+      "steps = int(f['chains'].attrs['steps'])\n"
+      "assert f['chains/positions'].shape[:2] == (steps // stride, w)\n"
+      "assert list(f['chains/step'][()]) == list(range(stride, steps + 1, stride))\n"
+      "assert f['chains/log_prob'].shape == (steps // stride, w)\n"
+      "print('ok')\n");
+  CHECK_MESSAGE(r.output == "ok\n", r.output);
+}
+
 // A project on the bundled demo system (two planets, three instruments), data files by
 // absolute path so the project can live in a temporary directory.
 std::string demo_project(const std::string& dir, long checkpoint_steps) {
@@ -159,8 +271,10 @@ TEST_SUITE("results_file") {
     const std::string project = demo_project(dir, 500);
     const std::string bin = apsides::test::apsides_binary();
     const std::string steps = "12000";
-    const auto full = apsides::test::run_command(bin + " sample " + project + " --out " + dir + "/full.h5 --quiet --max-steps " + steps);
+    const auto full = apsides::test::run_command(bin + " sample " + project + " --out " + dir + "/full.h5 --quiet --max-steps " +
+                                                 steps + " --json " + dir + "/sample.json", false);
     REQUIRE_MESSAGE(full.status == 0, full.output);
+    sample_contract(full.output, apsides::test::read_file(dir + "/sample.json"));
     // Start the same run, kill -9 it once the file has grown past a few checkpoints (2 MB:
     // the stored rows are compressed, the off-stride diagnostic rows are not).
     const std::string killer =
@@ -189,9 +303,11 @@ TEST_SUITE("results_file") {
 
     // summarize: JSON contract keys, and the demo's truth inside the 95 % intervals
     // (median +- 2 x the 16/84 half-widths; truth from datasets_synthetic/demo/truth.json).
-    const auto sum = apsides::test::run_command(bin + " summarize " + dir + "/full.h5 --json " + dir + "/summary.json");
+    const auto sum = apsides::test::run_command(bin + " summarize " + dir + "/full.h5 --json " + dir + "/summary.json", false);
     REQUIRE_MESSAGE(sum.status == 0, sum.output);
     CHECK(sum.output.find("MINIMUM mass") != std::string::npos);
+    summarize_contract(sum.output, apsides::test::read_file(dir + "/summary.json"));
+    per_parameter_datasets(dir + "/full.h5");
     const auto check = apsides::test::run_python(
         "import json\n"
         "s = json.load(open('" + dir + "/summary.json'))\n"
