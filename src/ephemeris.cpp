@@ -848,7 +848,15 @@ EphemerisResult fit_ephemeris(const TransitData& transits, const EphemerisOption
   if (options.prediction_model == EphemerisModel::kSinusoid && !r.ttv.fitted)
     throw InputError(fmt::format("prediction_model = sinusoid: no timing-variation fit ({})", r.ttv.message));
   score_timing_models(c);
-  const TimingPredictor tp = predictive_fit(c, r.prediction_model);
+  TimingPredictor tp = predictive_fit(c, r.prediction_model);
+  if (!tp.ok && r.prediction_model != EphemerisModel::kLinear) {
+    add_note(r, fmt::format("The {} ephemeris could not be refitted with its excess scatter; predictions use the "
+                            "linear ephemeris.",
+                            to_string(r.prediction_model)));
+    r.prediction_model = r.prediction.model = EphemerisModel::kLinear;
+    r.prediction.reason = "linear: the chosen model's predictive refit failed";
+    tp = predictive_fit(c, EphemerisModel::kLinear);
+  }
   if (!tp.ok) {
     r.termination = "failed";
     r.message = fmt::format("The {} ephemeris could not be refitted for the predictions.", to_string(r.prediction_model));
