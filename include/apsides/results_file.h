@@ -1,7 +1,7 @@
 // The HDF5 results file: one file per run, readable by h5py, astropy or any HDF5 tool.
 //
 // Layout (every dataset carries "unit" and "description" string attributes):
-//   /data/time_bjd, velocity_ms, uncertainty_ms, instrument (index), instrument_names
+//   /data/time_d, velocity_ms, uncertainty_ms, instrument (index), instrument_names
 //        attributes: reference_epoch_bjd
 //   /project/text                 the project file as read
 //   /parameters/names, units, priors
@@ -17,6 +17,9 @@
 //                                 diagnostics' own thinning reaches the stride
 //        /chains attributes: steps (sampler steps done), stride, walkers, seed,
 //        burn_in_steps, termination, message
+//   /derived/<name>               derived-quantity chains over the kept samples
+//   /diagnostics/rhat, ess_bulk, ess_tail, tau     per parameter
+//   /periodograms, /comparison, /nested_samples    for the other stages (free layout)
 //
 // What is stored, and at what stride. The chain is stored every `stride` steps
 // (kDefaultChainStride = 16 for `apsides sample`): those are the kept draws. Every
@@ -24,14 +27,11 @@
 // steps after the burn-in (at most 200 000 draws: all stored steps after burn-in when they
 // fit, else every 2nd, 3rd, ... stored step), so no kept draw is missing from the file.
 // The stride is fixed before the run (not tied to the autocorrelation time tau) and far
-// below tau on converged runs (the demo: tau ~ 160 steps), so the kept draws carry nearly
-// the whole chain's effective sample size. Measured on the demo (50 500 steps x 64 walkers
-// x 16 parameters, 101 000 kept draws): see README, "The results file". The convergence
-// diagnostics (R-hat, ESS, tau) are computed by the sampler on every step it thins to, not
-// on the stored rows.
-//   /derived/<name>               derived-quantity chains over the kept samples
-//   /diagnostics/rhat, ess_bulk, ess_tail, tau     per parameter
-//   /periodograms, /comparison, /nested_samples    for the other stages (free layout)
+// below tau on converged runs (the demo: tau ~ 180 steps), so the kept draws carry nearly
+// the whole chain's effective sample size. Measured on the demo (42 000 steps x 64 walkers
+// x 16 parameters): see README, "The results file". The convergence diagnostics (R-hat,
+// ESS, tau) are computed by the sampler during the run, on its own power-of-two thinning
+// of every step (sampler.h), not from the stored rows.
 //
 // Crash safety: between checkpoints nothing is written; at a checkpoint the new chain
 // rows are appended, the off-stride diagnostic rows written into slots the last
