@@ -565,9 +565,14 @@ void ResultsFile::write_diagnostic_slots(const std::vector<std::size_t>& slots, 
   std::vector<std::size_t> order(slots.size());
   for (std::size_t i = 0; i < order.size(); ++i) order[i] = i;
   std::sort(order.begin(), order.end(), [&](std::size_t a, std::size_t b) { return slots[a] < slots[b]; });
+  // Rows already adjacent in memory and in slot order (the usual case) are written in place.
+  bool in_place = true;
+  for (std::size_t i = 0; i < order.size() && in_place; ++i) in_place = order[i] == i && rows[i] == rows[0] + i * w * d;
   std::vector<double> packed;
-  packed.reserve(slots.size() * w * d);
-  for (std::size_t i : order) packed.insert(packed.end(), rows[i], rows[i] + w * d);
+  if (!in_place) {
+    packed.reserve(slots.size() * w * d);
+    for (std::size_t i : order) packed.insert(packed.end(), rows[i], rows[i] + w * d);
+  }
   Handle ds = impl_->open_dataset("/chains/state/diagnostic_rows");
   const hsize_t needed = slots[order.back()] + 1;
   if (shape("/chains/state/diagnostic_rows").at(0) < needed) {
@@ -585,7 +590,8 @@ void ResultsFile::write_diagnostic_slots(const std::vector<std::size_t>& slots, 
   }
   const hsize_t mcnt[3] = {slots.size(), w, d};
   Handle mspace(H5Screate_simple(3, mcnt, nullptr), H5Sclose, "make a memory space");
-  check(H5Dwrite(ds, H5T_NATIVE_DOUBLE, mspace, fspace, H5P_DEFAULT, packed.data()), "write diagnostic rows");
+  check(H5Dwrite(ds, H5T_NATIVE_DOUBLE, mspace, fspace, H5P_DEFAULT, in_place ? rows[0] : packed.data()),
+        "write diagnostic rows");
   std::vector<long long> index = diagnostic_slot_steps();
   for (std::size_t i = 0; i < slots.size(); ++i) {
     if (slots[i] >= index.size()) index.resize(slots[i] + 1, -1);
