@@ -231,6 +231,7 @@ std::vector<double> gls_power_direct(const std::vector<double>& t, const std::ve
 }
 
 FrequencyGrid default_grid(const VelocityData& data, const PeriodogramOptions& options) {
+  if (options.fixed_grid.nf > 0) return options.fixed_grid;
   const double T = data.baseline_days();
   FrequencyGrid g;
   if (!(T > 0.0)) return g;

@@ -53,6 +53,14 @@ std::string to_string(PeriodogramMethod m);
 // "auto", "exact", "fast"; throws InputError naming `where` otherwise.
 PeriodogramMethod parse_periodogram_method(const std::string& text, const std::string& where);
 
+// The frequency grid a periodogram uses: first frequency, step, count.
+struct FrequencyGrid {
+  double f0 = 0.0;
+  double df = 0.0;
+  std::size_t nf = 0;
+  double fmax() const { return f0 + df * static_cast<double>(nf == 0 ? 0 : nf - 1); }
+};
+
 struct PeriodogramOptions {
   // Frequency grid, uniform in frequency. Unset (<= 0) values come from the data:
   //   longest period: 3 x baseline (lowest frequency 1 / (3 T));
@@ -72,6 +80,9 @@ struct PeriodogramOptions {
   unsigned long long seed = 1;       // bootstrap seed
   int threads = 0;                   // 0 = all cores
   std::size_t max_grid_points = 50'000'000;  // refuse larger grids (memory)
+  // When set (nf > 0), this grid instead of the one above: an indicator's periodogram on
+  // the velocities' grid (activity.h), so the two share their frequencies exactly.
+  FrequencyGrid fixed_grid;
 
   // "" when valid, otherwise "field = value: must be ...".
   std::string Validate() const;
@@ -123,13 +134,7 @@ PeriodogramResult compute_residual_periodogram(const VelocityData& data,
                                                const std::vector<Planet>& planets,
                                                const PeriodogramOptions& options);
 
-// The frequency grid `compute_periodogram` would use: first frequency, step, count.
-struct FrequencyGrid {
-  double f0 = 0.0;
-  double df = 0.0;
-  std::size_t nf = 0;
-  double fmax() const { return f0 + df * static_cast<double>(nf == 0 ? 0 : nf - 1); }
-};
+// The grid `compute_periodogram` would use (options.fixed_grid when set).
 FrequencyGrid default_grid(const VelocityData& data, const PeriodogramOptions& options);
 
 // Low-level: GLS power (standard normalisation, one floating mean) of (t, y, dy) on the

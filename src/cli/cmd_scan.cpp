@@ -5,6 +5,8 @@
 #include <string>
 #include <vector>
 
+#include "activity/activity_json.h"
+#include "apsides/activity.h"
 #include "apsides/data.h"
 #include "apsides/error.h"
 #include "apsides/periodogram.h"
@@ -38,6 +40,37 @@ nlohmann::json peak_json(const Peak& p, const std::vector<Peak>& peaks, bool win
     j["alias_window_frequency_per_d"] = p.alias_window_frequency;
   }
   return j;
+}
+
+// Indicator periodograms' strongest peaks and the correlations (the shared peaks are
+// printed beside the velocity peaks).
+void print_activity(const ActivityResult& a) {
+  if (a.empty()) return;
+  fmt::print("\nActivity indicators (periodogram on the same grid, one zero point per instrument):\n");
+  for (const IndicatorPeriodogram& ip : a.periodograms) {
+    std::string peaks;
+    for (const Peak& p : ip.periodogram.peaks) peaks += fmt::format("  {:.4g} d (FAP {:.2g})", p.period_days, p.fap);
+    fmt::print("  {:<12} {:>5} values{}\n", ip.name, ip.n_points, peaks);
+  }
+  if (!a.correlations.empty()) {
+    fmt::print("\nCorrelation of the velocities with each indicator, per instrument (p two-sided):\n");
+    fmt::print("  {:<12} {:<12} {:>5} {:>8} {:>9} {:>9} {:>9}\n", "indicator", "instrument", "n", "Pearson", "p",
+               "Spearman", "p");
+    for (const IndicatorCorrelation& c : a.correlations)
+      fmt::print("  {:<12} {:<12} {:>5} {:>8.3f} {:>9.2g} {:>9.3f} {:>9.2g}\n", c.indicator, c.instrument, c.n,
+                 c.pearson_r, c.pearson_p, c.spearman_rho, c.spearman_p);
+  }
+  for (const std::string& n : a.notes) fmt::print("  {}\n", n);
+  if (!a.shared.empty())
+    fmt::print("A velocity peak that an indicator shows too is most likely the star's rotation or magnetic\n"
+               "activity, not a planet.\n");
+}
+
+std::string shared_note(const ActivityResult& a, std::size_t peak) {
+  std::string s;
+  for (const SharedSignal& sh : a.shared)
+    if (sh.velocity_peak == static_cast<int>(peak)) s += (s.empty() ? "" : "; ") + sh.note();
+  return s;
 }
 }  // namespace
 
@@ -89,6 +122,8 @@ Command register_scan(CLI::App& app) {
             opt.method = parse_periodogram_method(args->method, "--method");
             if (const std::string e = opt.Validate(); !e.empty()) throw InputError(e);
             const PeriodogramResult r = compute_periodogram(data, opt);
+            const ActivityResult activity =
+                data.indicators.empty() ? ActivityResult{} : analyze_activity(data, r, opt, ActivityOptions{});
 
             nlohmann::json j;
             j["peaks"] = nlohmann::json::array();
@@ -103,6 +138,7 @@ Command register_scan(CLI::App& app) {
                          {"n_frequencies", r.frequency_per_day.size()}};
             j["data"] = {{"n_points", data.size()}, {"instruments", data.instrument_names}, {"baseline_d", data.baseline_days()}};
             j["offsets"] = r.offsets_note;
+            if (!activity.empty()) j["activity"] = activity_json(activity);
             if (!args->common.json_path.empty()) write_json(args->common.json_path, j);
             if (!args->csv_path.empty()) {
               std::string s = "frequency_per_d,period_d,power,window\n";
@@ -130,6 +166,7 @@ Command register_scan(CLI::App& app) {
                 note = fmt::format("possible alias of #{} (window peak {:.4f}/d = {:.4g} d)", p.alias_of + 1,
                                    p.alias_window_frequency, 1.0 / p.alias_window_frequency);
               }
+              if (const std::string sh = shared_note(activity, i); !sh.empty()) note += (note.empty() ? "" : "; ") + sh;
               fmt::print("{:>3} {:>14.6f} {:>13.8f} {:>10.5g} {:>10.3g}{}  {}\n", i + 1, p.period_days,
                          p.frequency_per_day, p.power, p.fap,
                          boot ? fmt::format(" {:>10.3g}", p.fap_bootstrap) : "", note);
@@ -140,6 +177,7 @@ Command register_scan(CLI::App& app) {
                 fmt::print("    f = {:.6f} /d  (P = {:.4f} d)  window power {:.3f}\n", w.frequency_per_day,
                            w.period_days, w.power);
             }
+            print_activity(activity);
             fmt::print("\nFAP: Baluev (2008) analytic, for the highest peak up to {:.4g}/d{}.\n",
                        r.max_frequency_per_day, boot ? fmt::format("; bootstrap from {} resamplings", opt.bootstrap) : "");
             if (any_alias)
