@@ -1,5 +1,7 @@
 #include "apsides/fit.h"
 
+#include "apsides/activity.h"
+
 #include <fmt/format.h>
 
 #include <Eigen/Dense>
@@ -888,6 +890,19 @@ SearchProblem search_problem(const Project& project, const VelocityData& data, c
   sp.priors = project.priors;
   sp.star = project.star;
   sp.transit_jitter_planets = project.transit_jitter_planets();
+  // A GP's rotation period is sought near the activity indicators' strongest signal
+  // (activity.h), unless [noise] rotation_period_d says where.
+  if (sp.model.noise.kind == NoiseKind::kGaussianProcess && !std::isfinite(sp.model.rotation_hint_d) &&
+      !data.indicators.empty()) {
+    PeriodogramOptions po;
+    po.min_period_days = project.search.min_period_d.value_or(0.0);
+    const PeriodogramResult v = compute_periodogram(data, po);
+    const ActivityResult a = analyze_activity(data, v, po, ActivityOptions{});
+    if (std::isfinite(a.rotation_hint_days)) {
+      sp.model.rotation_hint_d = a.rotation_hint_days;
+      sp.model.rotation_hint_source = a.rotation_hint_source;
+    }
+  }
   return sp;
 }
 

@@ -150,6 +150,7 @@ ModelPriors build_priors(const VelocityData& data, const ModelLayout& layout, co
   context.periods = default_period_range(data, search);
   context.eccentricity.kind = model.eccentricity;
   context.transits = transits;
+  context.rotation_hint_days = model.rotation_hint_d;
   const ParameterLayout blocks = ParameterLayout::from(layout, data.instrument_names);
   ModelPriors mp;
   mp.parameter.resize(blocks.n_params());

@@ -363,6 +363,27 @@ void parse_model(const Ctx& ctx, const toml::table& root, Project& pr) {
   }
 }
 
+void parse_noise(const Ctx& ctx, const toml::table& root, Project& pr) {
+  const toml::table* t = get_table(ctx, root, "noise");
+  if (!t) return;
+  check_keys(ctx, *t, "noise", {"kind", "kernel", "per_instrument_amplitude", "rotation_period_d"});
+  NoiseSettings& n = pr.model.noise;
+  if (const toml::node* k = t->get("kind"))
+    n.kind = parse_noise_kind(get_string(ctx, *t, "noise", "kind", "white"), ctx.where(*k, "noise.kind"));
+  if (const toml::node* k = t->get("kernel"))
+    n.kernel = gp::parse_kernel_kind(get_string(ctx, *t, "noise", "kernel", "rotation"), ctx.where(*k, "noise.kernel"));
+  n.per_instrument_amplitude = get_bool(ctx, *t, "noise", "per_instrument_amplitude", false);
+  if (const toml::node* k = t->get("rotation_period_d")) {
+    const double p = get_number(ctx, *t, "noise", "rotation_period_d", 0.0);
+    if (!(p > 0.0)) throw InputError(fmt::format("{} is {}; it must be > 0 days", ctx.where(*k, "noise.rotation_period_d"), p));
+    pr.model.rotation_hint_d = p;
+    pr.model.rotation_hint_source = fmt::format("{} [noise] rotation_period_d", ctx.path);
+  }
+  if (n.kind == NoiseKind::kWhite && (t->get("kernel") || t->get("per_instrument_amplitude") || t->get("rotation_period_d")))
+    throw InputError(fmt::format("{}: [noise] sets a kernel but kind is \"white\"; write kind = \"gp\" to use it",
+                                 ctx.where(*t, "noise")));
+}
+
 void parse_priors(const Ctx& ctx, const toml::table& root, Project& pr) {
   const toml::table* t = get_table(ctx, root, "priors");
   if (!t) return;
@@ -417,7 +438,8 @@ struct TableEntry {
 };
 constexpr TableEntry kTables[] = {
     {"star", parse_star},     {"velocities", parse_velocities}, {"transits", parse_transits},
-    {"search", parse_search}, {"model", parse_model},           {"priors", parse_priors},
+    {"search", parse_search}, {"model", parse_model},           {"noise", parse_noise},
+    {"priors", parse_priors},
     {"sampler", parse_sampler}, {"evidence", parse_evidence},
 };
 

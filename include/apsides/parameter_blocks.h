@@ -283,6 +283,9 @@ class GpBlock final : public ParameterBlock {
   void set_default_priors(const PriorContext& context, ModelPriors& priors) const override;
   void check_override(int slot, const Prior& prior, const std::string& where) const override;
   double fit_start(int slot, const Prior& prior) const override;
+  // A rotation or period prior that lies wholly beyond the data's baseline is an input error.
+  void finish_priors(const PriorContext& context, const std::vector<std::string>& overridden,
+                     ModelPriors& priors) const override;
   double fit_step(int slot, std::span<const double> theta, double baseline_days, double bound_width) const override;
 
  private:

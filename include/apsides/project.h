@@ -40,6 +40,7 @@
 #pragma once
 
 #include <map>
+#include <limits>
 #include <optional>
 #include <string>
 #include <vector>
@@ -89,6 +90,10 @@ struct ModelSettings {
   // Exclude orbits whose periastron lies inside the star (needs [star] mass_msun).
   bool periastron_outside_star = true;
   NoiseSettings noise;  // [noise] kind, kernel, per_instrument_amplitude
+  // Centre of the GP's rotation-period prior ([noise] rotation_period_d, else the strongest
+  // activity-indicator signal, activity.h) and where it came from; NaN: no hint.
+  double rotation_hint_d = std::numeric_limits<double>::quiet_NaN();
+  std::string rotation_hint_source;
 };
 
 // One [priors] entry, validated but not yet bound to a layout.

@@ -6,6 +6,7 @@
 #include <stdexcept>
 
 #include "apsides/data.h"
+#include "apsides/error.h"
 #include "apsides/keplerian_model.h"
 #include "apsides/parameter_blocks.h"
 #include "model/prior_context.h"
@@ -165,6 +166,19 @@ void GpBlock::set_default_priors(const PriorContext& c, ModelPriors& priors) con
     priors.parameter[index(s)] = p;
   }
   for (int s = n_kernel_; s < size(); ++s) priors.parameter[index(s)] = Prior::log_uniform(0.1, 10.0);
+}
+
+void GpBlock::finish_priors(const PriorContext& c, const std::vector<std::string>& overridden, ModelPriors& priors) const {
+  for (int s = 0; s < n_kernel_; ++s) {
+    const std::string& n = info(s).name;
+    if (n != "gp.rotation_period_d" && n != "gp.period_d") continue;
+    if (std::find(overridden.begin(), overridden.end(), n) == overridden.end()) continue;
+    const Prior& p = priors.parameter[index(s)];
+    if (p.lower() > c.stats.baseline)
+      throw InputError(fmt::format("[priors] {}: the prior starts at {:.6g} d, beyond the data's baseline of {:.6g} d; "
+                                   "a period the data do not cover cannot be constrained",
+                                   n, p.lower(), c.stats.baseline));
+  }
 }
 
 void GpBlock::check_override(int slot, const Prior& prior, const std::string& where) const {
