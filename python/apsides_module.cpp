@@ -492,7 +492,32 @@ class Results {
   bool has_chains() const { return file().exists("/chains/positions"); }
   long steps() const { return has_chains() ? file().chain_steps() : 0; }
   int walkers() const { return has_chains() ? file().chain_walkers() : 0; }
-  long burn_in_steps() const { return steps() / 2; }
+  long stride() const { return has_chains() ? file().chain_stride() : 1; }
+  // The burn-in the run recorded (/chains burn_in_steps), else the first half.
+  long burn_in_steps() const {
+    const ResultsFile& f = file();
+    if (has_chains() && f.has_attribute("/chains", "burn_in_steps")) return static_cast<long>(f.int_attribute("/chains", "burn_in_steps"));
+    return steps() / 2;
+  }
+  // The sampler step of each stored row: stride, 2 stride, ... (the file's /chains/step).
+  py::object chain_steps() const {
+    const long st = stride(), rows = steps() / st;
+    std::vector<double> v(static_cast<std::size_t>(rows));
+    for (long i = 0; i < rows; ++i) v[static_cast<std::size_t>(i)] = static_cast<double>((i + 1) * st);
+    return py::module_::import("numpy").attr("asarray")(to_numpy(std::move(v)), "dtype"_a = "int64");
+  }
+  // The draws every posterior number of the file is computed from (stored steps after the
+  // burn-in, at most `max_samples`: ResultsFile::select_steps), (draws x parameters).
+  py::object samples(std::size_t max_samples) const {
+    const ResultsFile& f = file();
+    require(has_chains(), fmt::format("{}: holds no chains (not a sampling run)", f.path()));
+    const auto d = static_cast<py::ssize_t>(f.chain_dim());
+    const ResultsFile::StepSelection sel = f.select_steps(burn_in_steps(), f.chain_steps(), max_samples);
+    std::vector<double> pos;
+    if (sel.rows > 0) pos = f.read_chain_rows(sel.first, sel.last, sel.stride);
+    const auto n = static_cast<py::ssize_t>(pos.size()) / std::max<py::ssize_t>(d, 1);
+    return to_numpy(std::move(pos), {n, d});
+  }
   std::vector<std::string> strings(const std::string& p) const {
     return file().exists(p) ? file().read_strings(p) : std::vector<std::string>{};
   }
@@ -543,7 +568,12 @@ class Results {
     const std::vector<std::string> names = f.read_strings("/data/instrument_names");
     py::list inst;
     for (long long i : idx) inst.append(names.at(static_cast<std::size_t>(i)));
-    return py::dict("time_bjd"_a = vector_or_none("/data/time_bjd"), "velocity_ms"_a = vector_or_none("/data/velocity_ms"),
+    py::object t = vector_or_none("/data/time_d");  // time - reference_epoch_bjd (older files: /data/time_bjd)
+    if (!t.is_none() && f.has_attribute("/data", "reference_epoch_bjd"))
+      t = t + py::float_(f.double_attribute("/data", "reference_epoch_bjd"));
+    else if (t.is_none())
+      t = vector_or_none("/data/time_bjd");
+    return py::dict("time_bjd"_a = t, "velocity_ms"_a = vector_or_none("/data/velocity_ms"),
                     "uncertainty_ms"_a = vector_or_none("/data/uncertainty_ms"),
                     "instrument"_a = py::module_::import("numpy").attr("array")(inst, "dtype"_a = "U"));
   }
@@ -562,13 +592,13 @@ class Results {
     if (chains_) return;
     const ResultsFile& f = file();
     require(has_chains(), fmt::format("{}: holds no chains (not a sampling run)", f.path()));
-    const long s = f.chain_steps();
+    const long st = f.chain_stride(), rows = f.chain_steps() / st;  // stored rows: steps st, 2 st, ...
     const auto w = static_cast<py::ssize_t>(f.chain_walkers());
     const auto d = static_cast<py::ssize_t>(f.chain_dim());
     std::vector<double> pos, lp;
-    if (s > 0) pos = f.read_chain_rows(1, s, 1, &lp);
-    chains_ = to_numpy(std::move(pos), {s, w, d});
-    log_prob_ = to_numpy(std::move(lp), {s, w});
+    if (rows > 0) pos = f.read_chain_rows(st, rows * st, st, &lp);
+    chains_ = to_numpy(std::move(pos), {rows, w, d});
+    log_prob_ = to_numpy(std::move(lp), {rows, w});
   }
 
   std::unique_ptr<ResultsFile> file_;
@@ -718,8 +748,10 @@ offset_ms, jitter_ms; trend; ...). A contiguous float64 array is read without a 
 
   py::class_<Results>(m, "Results", R"(A results file (HDF5) written by sample or analyze, read-only.
 
-Results.open(path). `chains`: positions (steps x walkers x parameters) and `log_prob`
-(steps x walkers), every stored step (burn-in: the first burn_in_steps); `names`, `units`;
+Results.open(path). `chains`: positions (stored rows x walkers x parameters) and `log_prob`
+(stored rows x walkers); the file stores every `stride`-th sampler step (16 for `sample`),
+`chain_steps` gives the step of each row; `samples()`: the draws after the burn-in
+(burn_in_steps) that every posterior number is computed from; `names`, `units`;
 `summary()`: the posterior table (medians with 16/84 % intervals) and diagnostics;
 `summary_json()`: the contract dict of `apsides summarize --json`; `derived()`: derived
 chains (m sin i, a, ...); `data()`, `diagnostics()`, `map_theta`.)")
@@ -733,12 +765,17 @@ chains (m sin i, a, ...); `data()`, `diagnostics()`, `map_theta`.)")
       .def_property_readonly("priors", [](const Results& r) { return r.strings("/parameters/priors"); })
       .def_property_readonly("steps", &Results::steps)
       .def_property_readonly("walkers", &Results::walkers)
-      .def_property_readonly("burn_in_steps", &Results::burn_in_steps)
+      .def_property_readonly("burn_in_steps", &Results::burn_in_steps, "sampler steps discarded as burn-in")
+      .def_property_readonly("stride", &Results::stride, "sampler steps between stored chain rows")
+      .def_property_readonly("chain_steps", &Results::chain_steps, "the sampler step of each stored row (int64 array)")
+      .def("samples", &Results::samples, "max_samples"_a = 200000,
+           "the kept draws (stored steps after the burn-in; every 2nd, 3rd, ... when more than max_samples), "
+           "(draws x parameters): what summary() and the report are computed from")
       .def_property_readonly("project_text", [](const Results& r) { return r.file().read_text("/project/text"); })
       .def_property_readonly("map_theta", [](const Results& r) { return r.vector_or_none("/map/theta"); })
       .def_property_readonly("chains", &Results::chains,
-                             "positions, (steps x walkers x parameters), every stored step; burn-in: the first burn_in_steps")
-      .def_property_readonly("log_prob", &Results::log_prob, "ln posterior of each position, (steps x walkers)")
+                             "positions, (stored rows x walkers x parameters); row i is sampler step chain_steps[i]")
+      .def_property_readonly("log_prob", &Results::log_prob, "ln posterior of each position, (stored rows x walkers)")
       .def("summary", &Results::summary)
       .def("summary_json", &Results::summary_document)
       .def("derived", &Results::derived)

@@ -68,8 +68,9 @@ run = apsides.sample(project, str(run_path), planets=fit["n_planets"], max_steps
 s = run["sampler"]
 print(f"\nsampler: {s['steps']} steps x {s['walkers']} walkers, {s['termination']}; R-hat max {s['rhat_max']:.3f}")
 with apsides.Results.open(str(run_path)) as r:
-    kept = r.chains[r.burn_in_steps:].reshape(-1, len(r.names))
-    print(f"chains {r.chains.shape} (steps x walkers x parameters); {len(kept)} kept samples")
+    kept = r.samples()  # stored steps after the burn-in, (draws x parameters)
+    print(f"chains {r.chains.shape} (stored rows, every {r.stride}th step, x walkers x parameters); "
+          f"{len(kept)} kept samples")
     summary = {row["name"]: row for row in r.summary()["derived"]}
     for label in ("b", "c"):
         m = summary[f"{label}.msini_mjup"]

@@ -126,14 +126,18 @@ def test_sample_equals_the_command_line_and_results_read_like_h5py(demo_project_
     assert got["sampler"]["steps"] == 60 and got["sampler"]["termination"] == "max_steps reached"
     with apsides.Results.open(str(tmp_path / "py.h5")) as r, h5py.File(tmp_path / "cli.h5", "r") as h:
         steps = int(h["chains"].attrs["steps"])
-        assert r.steps == steps == 60 and r.burn_in_steps == 30
-        assert r.chains.shape == (60, r.walkers, len(r.names))
-        np.testing.assert_array_equal(r.chains, h["chains/positions"][:steps])  # bitwise, another reader
-        np.testing.assert_array_equal(r.log_prob, h["chains/log_prob"][:steps])
+        stride = int(h["chains"].attrs["stride"])
+        rows = steps // stride
+        assert r.steps == steps == 60 and r.burn_in_steps == int(h["chains"].attrs["burn_in_steps"])
+        assert r.stride == stride and r.chains.shape == (rows, r.walkers, len(r.names))
+        np.testing.assert_array_equal(r.chain_steps, h["chains/step"][:rows])
+        np.testing.assert_array_equal(r.chains, h["chains/positions"][:rows])  # bitwise, another reader
+        np.testing.assert_array_equal(r.log_prob, h["chains/log_prob"][:rows])
         assert r.names == [n.decode() if isinstance(n, bytes) else n for n in h["parameters/names"][:]]
         s = r.summary()
         assert [row["name"] for row in s["parameters"]] == r.names
-        kept = r.chains[r.burn_in_steps:].reshape(-1, len(r.names))
+        kept = r.samples()
+        np.testing.assert_array_equal(kept, r.chains[r.chain_steps > r.burn_in_steps].reshape(-1, len(r.names)))
         i = r.names.index("c.period_d")
         assert s["parameters"][i]["median"] == pytest.approx(np.percentile(kept[:, i], 50), rel=1e-12)
         assert r.summary_json()["planets"][1]["label"] == "c"
