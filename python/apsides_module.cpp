@@ -17,14 +17,18 @@
 #include <chrono>
 #include <cmath>
 #include <fstream>
+#include <limits>
 #include <memory>
 #include <optional>
+#include <set>
+#include <stdexcept>
 #include <sstream>
 #include <string>
 #include <vector>
 
 #include "apsides/analysis.h"
 #include "apsides/data_arrays.h"
+#include "apsides/ephemeris.h"
 #include "apsides/error.h"
 #include "apsides/json_outputs.h"
 #include "apsides/kepler.h"
@@ -217,6 +221,60 @@ std::shared_ptr<Project> project_from_arrays_py(Array time, Array velocity, Arra
   py::gil_scoped_release release;
   *pr = project_from_data(velocity_data_from_arrays(va), transit_data_from_arrays(ta), settings, name);
   return pr;
+}
+
+// `apsides ephemeris`: the transit times of a file (`path`) or of arrays, one planet.
+py::object ephemeris_py(const std::string& path, Array t_epoch, Array t_time, Array t_uncertainty,
+                        std::vector<std::string> t_planet, std::string planet, int next, std::optional<double> from_bjd,
+                        std::optional<double> to_bjd, long long epoch, bool scale_errors, double outlier_sigma,
+                        bool drop_outliers, double companion_period, const std::string& model, bool ttv) {
+  EphemerisOptions opt;
+  opt.user_epoch = epoch;
+  opt.scale_errors = scale_errors;
+  opt.outlier_sigma = outlier_sigma;
+  opt.drop_outliers = drop_outliers;
+  opt.search_ttv = ttv;
+  opt.companion_period_days = companion_period;
+  require(next >= 0, fmt::format("next = {}: must be >= 0", next));
+  require(!to_bjd || from_bjd, "to_bjd needs from_bjd");
+  opt.n_next = next;
+  opt.from_bjd = from_bjd.value_or(std::numeric_limits<double>::quiet_NaN());
+  opt.to_bjd = to_bjd.value_or(std::numeric_limits<double>::quiet_NaN());
+  opt.prediction_model = parse_ephemeris_model(model, "model");
+  if (const std::string e = opt.Validate(); !e.empty()) throw InputError(e);
+  std::string text;
+  {
+    py::gil_scoped_release release;
+    TransitData all;
+    if (!path.empty()) {
+      all = read_transit_file(path, TransitFileOptions{});
+    } else {
+      TransitArrays ta;
+      ta.epoch = span_of(t_epoch);
+      ta.time_bjd = span_of(t_time);
+      ta.uncertainty_days = span_of(t_uncertainty);
+      ta.planet = std::move(t_planet);
+      all = transit_data_from_arrays(ta);
+    }
+    const std::string name = path.empty() ? std::string("transits") : path;
+    std::set<std::string> labels(all.planet.begin(), all.planet.end());
+    std::string known;
+    for (const auto& l : labels) known += (known.empty() ? "" : ", ") + (l.empty() ? "(none)" : l);
+    TransitData data;
+    if (!planet.empty()) {
+      require(labels.count(planet) > 0, fmt::format("planet = {}: {} has no transits of that planet (labels: {})",
+                                                     planet, name, known));
+      data = all.for_planet(planet);
+    } else {
+      require(labels.size() <= 1, fmt::format("{}: holds transits of several planets ({}); choose one with planet=", name, known));
+      data = all;
+      planet = labels.empty() ? "" : *labels.begin();
+    }
+    const EphemerisResult r = fit_ephemeris(data, opt);
+    if (r.termination != "converged") throw std::runtime_error(r.message);
+    text = ephemeris_json(r, name, planet, all.ignored_columns);
+  }
+  return json_value(text);
 }
 
 py::dict velocities_dict(const Project& pr) {
@@ -673,6 +731,10 @@ All arguments broadcast (numpy).)");
 
   m.def("_periodogram", &periodogram_py, "project"_a, "min_period"_a, "max_period"_a, "oversample"_a,
         "normalization"_a, "method"_a, "peaks"_a, "window_peaks"_a, "bootstrap"_a, "seed"_a, "threads"_a);
+
+  m.def("_ephemeris", &ephemeris_py, "path"_a, "t_epoch"_a, "t_time"_a, "t_uncertainty"_a, "t_planet"_a, "planet"_a,
+        "next"_a, "from_bjd"_a, "to_bjd"_a, "epoch"_a, "scale_errors"_a, "outlier_sigma"_a, "drop_outliers"_a,
+        "companion_period"_a, "model"_a, "ttv"_a);
 
   m.def("fit", &fit_py, "project"_a, "planets"_a = py::none(), py::kw_only(), "search"_a = false,
         "max_planets"_a = py::none(), "fap_threshold"_a = py::none(), "min_bic_improvement"_a = py::none(),

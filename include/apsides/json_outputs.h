@@ -9,6 +9,7 @@
 #include <string>
 
 #include "apsides/data.h"
+#include "apsides/ephemeris.h"
 #include "apsides/evidence.h"
 #include "apsides/periodogram.h"
 #include "apsides/project_stages.h"
@@ -33,5 +34,11 @@ std::string compare_json(const CompareResult& result, const VelocityData& data);
 // `apsides sample`: {"sampler": {"walkers", "steps", "burn_in_steps", "rhat_max",
 // "ess_min", "tau_max", "termination", "message"}}.
 std::string sampling_json(const SamplerResult& result);
+
+// `apsides ephemeris`: {"file", "planet", "n_transits", "reference_bjd", "t0_bjd", "t_ref_bjd",
+// "period_d", "cov_t0_period_d2", "chi2", "dof", "ignored_columns", "notes", "oc",
+// "quadratic", "ttv", "predictions", ...}; `file` names the data in the document.
+std::string ephemeris_json(const EphemerisResult& result, const std::string& file, const std::string& planet,
+                           const std::vector<std::string>& ignored_columns);
 
 }  // namespace apsides

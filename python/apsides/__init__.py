@@ -40,7 +40,7 @@ from ._apsides import (  # noqa: F401  (the public API)
 from . import _apsides
 
 __all__ = [
-    "InputError", "Model", "Periodogram", "Project", "Results", "analyze", "compare", "fit",
+    "InputError", "Model", "Periodogram", "Project", "Results", "analyze", "compare", "ephemeris", "fit",
     "minimum_mass", "periodogram", "radial_velocity", "sample", "solve_kepler",
 ]
 
@@ -266,3 +266,29 @@ def periodogram(t, y=None, dy=None, instrument=None, *, min_period: Optional[flo
     return Periodogram(frequency=freq, power=power, window=window, peaks=doc["peaks"],
                        window_peaks=doc["window_peaks"], normalization=doc["normalization"], method=doc["method"],
                        grid=doc["grid"], data=doc["data"], offsets=doc["offsets"], document=doc)
+
+
+def ephemeris(transits, planet: Optional[str] = None, *, next: int = 10, from_bjd: Optional[float] = None,
+              to_bjd: Optional[float] = None, epoch: int = 0, scale_errors: bool = False,
+              outlier_sigma: float = 5.0, drop_outliers: bool = False, companion_period: float = 0.0,
+              model: str = "auto", ttv: bool = True) -> dict:
+    """Transit ephemeris, as ``apsides ephemeris TIMES --json`` (same dict).
+
+    transits: a transit-time file (path) or a table / tuple of arrays (epoch, mid-transit
+    BJD_TDB, uncertainty in days[, planet]). planet: the label to use when there are several.
+    Linear and quadratic ephemerides, O-C with outliers beyond outlier_sigma (drop_outliers
+    refits without them), a timing-variation search (ttv=False skips it) and predictions of the
+    next ``next`` transits (or every one from from_bjd to to_bjd) with the model ``model``
+    ("auto": the best supported by BIC, "linear", "quadratic", "sinusoid"). Returns
+    {"period_d": {"value", "err"}, "t0_bjd", "t_ref_bjd", "oc", "quadratic", "ttv",
+    "predictions", "chi2", "dof", "notes", ...}: days, BJD_TDB. Raises RuntimeError when the
+    fit does not converge.
+    """
+    if isinstance(transits, (str, os.PathLike)):
+        path, (te, tt, ts), labels = os.fspath(transits), (np.empty(0), np.empty(0), np.empty(0)), []
+    else:
+        path = ""
+        (te, tt, ts), labels = _gather(transits, _TRANSIT_COLUMNS, ("epoch", "time", "uncertainty"), "transits")
+    return _apsides._ephemeris(path, te, tt, ts, labels, planet or "", int(next), from_bjd, to_bjd, int(epoch),
+                               bool(scale_errors), float(outlier_sigma), bool(drop_outliers), float(companion_period),
+                               model, bool(ttv))
