@@ -35,9 +35,11 @@ def best_us(fn, repeat=7):
 def main():
     load = open("/proc/loadavg").read().split()[:3]
     print(f"apsides {apsides.__version__}: Python call overhead, load {' '.join(load)}")
-    cpp = bl.ours() if bl.BINARY.exists() else {}
+    program = bl._benchlib.BENCH / "likelihood_benchmark"
+    # The best SIMD target of this machine: the one the module's run-time dispatch picks too.
+    cpp = bl.ours(bl._benchlib.targets("likelihood_benchmark")[0]) if program.exists() else {}
     if not cpp:
-        print(f"  ({bl.BINARY} not found: run scripts/bench to build it; C++ column left empty)")
+        print(f"  ({program} not found: run scripts/bench to build it; C++ column left empty)")
     print(f"{'N':>6} {'C++ us':>8} {'Model.log_likelihood us':>24} {'Model() us':>11} {'overhead us':>12}   lnL (module / numpy / C++)")
     for n in (200, 1000):
         t, y, dy, inst = bl.make_data(n)
