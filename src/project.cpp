@@ -4,6 +4,7 @@
 
 #include <algorithm>
 #include <cmath>
+#include <cstdint>
 #include <filesystem>
 #include <fstream>
 #include <set>
@@ -22,6 +23,7 @@ namespace {
 struct Ctx {
   std::string path;      // the project file, for messages
   std::string base_dir;  // resolves relative data paths
+  bool data_in_memory = false;  // project_from_data: no [[velocities]] / [[transits]] blocks
   std::string where(const toml::node& n, const std::string& key) const {
     const auto& src = n.source();
     if (src.begin.line > 0) return fmt::format("{}:{}: {}", path, src.begin.line, key);
@@ -294,7 +296,7 @@ void parse_velocities(const Ctx& ctx, const toml::table& root, Project& pr) {
                                    "velocity and uncertainty", ctx.where(*n, "velocities.columns"), o.columns.size()));
     pr.velocities.push_back(s);
   }
-  if (pr.velocities.empty()) {
+  if (pr.velocities.empty() && !ctx.data_in_memory) {
     throw InputError(fmt::format("{}: no [[velocities]] block; a project needs at least one velocity file", ctx.path));
   }
 }
@@ -445,8 +447,11 @@ constexpr TableEntry kTables[] = {
 
 }  // namespace
 
-Project parse_project(const std::string& text, const std::string& path, const std::string& base_dir) {
-  Ctx ctx{path, base_dir};
+namespace {
+// The whole parser; `data_in_memory` (project_from_data): no [[velocities]] / [[transits]].
+Project parse_project_text(const std::string& text, const std::string& path, const std::string& base_dir,
+                           bool data_in_memory) {
+  Ctx ctx{path, base_dir, data_in_memory};
   toml::table root;
   try {
     root = toml::parse(text, path);
@@ -461,7 +466,66 @@ Project parse_project(const std::string& text, const std::string& path, const st
   std::set<std::string> tables;
   for (const TableEntry& e : kTables) tables.insert(e.name);
   check_keys(ctx, root, "", tables);
+  if (data_in_memory) {
+    for (const char* key : {"velocities", "transits"})
+      if (const toml::node* n = root.get(key))
+        throw InputError(fmt::format("{}:{}: [[{}]] names a file, but this project's data are given as arrays", path,
+                                     n->source().begin.line, key));
+  }
   for (const TableEntry& e : kTables) e.parse(ctx, root, pr);
+  return pr;
+}
+
+// Every [priors] key naming an instrument ("<instrument>.offset_ms", "<instrument>.jitter_ms")
+// must name one present in the data.
+void check_prior_instruments(const Project& pr, const VelocityData& data) {
+  for (const auto& p : pr.priors) {
+    const std::size_t dot = p.parameter.rfind('.');
+    if (dot == std::string::npos) continue;
+    const std::string owner = p.parameter.substr(0, dot), what = p.parameter.substr(dot + 1);
+    if (what != "offset_ms" && what != "jitter_ms") continue;
+    if (std::find(data.instrument_names.begin(), data.instrument_names.end(), owner) != data.instrument_names.end())
+      continue;
+    std::string list;
+    for (const auto& n : data.instrument_names) list += (list.empty() ? "'" : ", '") + n + "'";
+    throw InputError(fmt::format("{}: priors.{} names instrument '{}', which is not in the data (instruments: {})",
+                                 p.origin.empty() ? pr.path : p.origin, p.parameter, owner, list));
+  }
+}
+}  // namespace
+
+Project parse_project(const std::string& text, const std::string& path, const std::string& base_dir) {
+  return parse_project_text(text, path, base_dir, false);
+}
+
+Project project_from_data(VelocityData velocities, TransitData transits, const std::string& settings_toml,
+                          const std::string& name_for_messages) {
+  Project pr = parse_project_text(settings_toml, name_for_messages, ".", true);
+  check_prior_instruments(pr, velocities);
+  // FNV-1a over the numbers and labels: a resumed run must see the same data.
+  std::uint64_t h = 1469598103934665603ull;
+  auto mix = [&h](const void* p, std::size_t n) {
+    const auto* b = static_cast<const unsigned char*>(p);
+    for (std::size_t i = 0; i < n; ++i) h = (h ^ b[i]) * 1099511628211ull;
+  };
+  auto mix_doubles = [&](const std::vector<double>& v) { mix(v.data(), v.size() * sizeof(double)); };
+  mix(&velocities.reference_epoch_bjd, sizeof(double));
+  mix_doubles(velocities.time_days);
+  mix_doubles(velocities.velocity_m_s);
+  mix_doubles(velocities.uncertainty_m_s);
+  for (int i : velocities.instrument) mix(&i, sizeof i);
+  for (const auto& n : velocities.instrument_names) mix(n.data(), n.size() + 1);
+  mix(&transits.reference_epoch_bjd, sizeof(double));
+  for (long long e : transits.epoch) mix(&e, sizeof e);
+  mix_doubles(transits.time_days);
+  mix_doubles(transits.uncertainty_days);
+  for (const auto& p : transits.planet) mix(p.data(), p.size() + 1);
+  pr.text = settings_toml;
+  if (!pr.text.empty() && pr.text.back() != '\n') pr.text += '\n';
+  pr.text += fmt::format("# data given in memory: {} velocities, {} transit times, checksum {:016x}\n",
+                         velocities.size(), transits.size(), h);
+  pr.velocity_data = std::move(velocities);
+  pr.transit_data = std::move(transits);
   return pr;
 }
 
@@ -480,6 +544,10 @@ Project load_project(const std::string& path) {
 }
 
 VelocityData Project::load_velocities() const {
+  if (velocity_data) {
+    check_prior_instruments(*this, *velocity_data);
+    return *velocity_data;
+  }
   std::vector<std::string> paths;
   std::vector<VelocityFileOptions> opts;
   for (const auto& v : velocities) {
@@ -492,22 +560,12 @@ VelocityData Project::load_velocities() const {
     opts.push_back(v.options);
   }
   VelocityData data = apsides::load_velocities(paths, opts);
-  for (const auto& p : priors) {
-    const std::size_t dot = p.parameter.rfind('.');
-    if (dot == std::string::npos) continue;
-    const std::string owner = p.parameter.substr(0, dot), what = p.parameter.substr(dot + 1);
-    if (what != "offset_ms" && what != "jitter_ms") continue;
-    if (std::find(data.instrument_names.begin(), data.instrument_names.end(), owner) != data.instrument_names.end())
-      continue;
-    std::string list;
-    for (const auto& n : data.instrument_names) list += (list.empty() ? "'" : ", '") + n + "'";
-    throw InputError(fmt::format("{}: priors.{} names instrument '{}', which is not in the data (instruments: {})",
-                                 p.origin.empty() ? path : p.origin, p.parameter, owner, list));
-  }
+  check_prior_instruments(*this, data);
   return data;
 }
 
 TransitData Project::load_transits() const {
+  if (transit_data) return *transit_data;
   TransitData all;
   std::vector<TransitData> parts;
   for (const auto& s : transits) {

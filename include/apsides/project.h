@@ -132,6 +132,12 @@ struct Project {
   SamplerSettings sampler;
   EvidenceSettings evidence;
 
+  // Data held in memory instead of read from files (project_from_data; the Python module
+  // also keeps a loaded project's data here). When set, load_velocities / load_transits
+  // return them instead of reading `velocities` / `transits`.
+  std::optional<VelocityData> velocity_data;
+  std::optional<TransitData> transit_data;
+
   // Reads and combines every [[velocities]] file (a missing file is reported with the
   // project line naming it), then checks that every [priors] key naming an instrument
   // ("<instrument>.offset_ms", "<instrument>.jitter_ms") names one present in the data.
@@ -146,5 +152,16 @@ Project load_project(const std::string& path);
 // Same from a string (for tests); `base_dir` resolves relative data paths.
 Project parse_project(const std::string& text, const std::string& path_for_messages,
                       const std::string& base_dir);
+
+// A project whose data are given in memory (data_arrays.h) rather than named by
+// [[velocities]] / [[transits]] blocks: `settings_toml` may hold every other table of a
+// project file ([star], [search], [model], [priors], [sampler], [evidence]; "" for the
+// defaults), validated as in a file named `name_for_messages`; a [[velocities]] or
+// [[transits]] block in it is an input error. The [priors] instrument names are checked
+// against `velocities` here. `text` (what a results file stores and a resumed run compares)
+// is the settings plus a line describing the data and a checksum of them, so a run started
+// on other numbers is not resumed.
+Project project_from_data(VelocityData velocities, TransitData transits, const std::string& settings_toml,
+                          const std::string& name_for_messages = "<arrays>");
 
 }  // namespace apsides

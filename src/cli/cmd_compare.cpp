@@ -9,8 +9,10 @@
 #include "apsides/error.h"
 #include "apsides/evidence.h"
 #include "apsides/fit.h"
+#include "apsides/json_outputs.h"
 #include "apsides/model_priors.h"
 #include "apsides/project.h"
+#include "apsides/project_stages.h"
 #include "apsides/results_file.h"
 #include "cli/common.h"
 
@@ -31,45 +33,6 @@ struct CompareArgs {
   CommonOptions common;
 };
 
-nlohmann::json finite_or_null(double x) { return std::isfinite(x) ? nlohmann::json(x) : nlohmann::json(nullptr); }
-
-nlohmann::json to_json(const CompareResult& r, const VelocityData& data) {
-  nlohmann::json rows = nlohmann::json::array();
-  for (const auto& row : r.rows) {
-    rows.push_back({{"n_planets", row.n_planets},
-                    {"n_params", row.n_params},
-                    {"ln_like_max", finite_or_null(row.ln_like_max)},
-                    {"bic", finite_or_null(row.bic)},
-                    {"aicc", finite_or_null(row.aicc)},
-                    {"ln_evidence", finite_or_null(row.ln_evidence)},
-                    {"ln_evidence_err", finite_or_null(row.ln_evidence_err)},
-                    {"information_nats", finite_or_null(row.information_nats)},
-                    {"ln_bayes_vs_previous", finite_or_null(row.ln_bayes_vs_previous)},
-                    {"ln_bayes_err", finite_or_null(row.ln_bayes_err)},
-                    {"bayes_wording", row.bayes_wording},
-                    {"termination", to_string(row.nested.termination)},
-                    {"unreliable", row.unreliable},
-                    {"likelihood_calls", row.likelihood_calls},
-                    {"seconds", row.seconds},
-                    {"ordering", row.ordering_note}});
-  }
-  return {{"data", {{"n_points", data.size()}, {"instruments", data.instrument_names}, {"baseline_d", data.baseline_days()}}},
-          {"comparison", rows},
-          {"selected_n_planets", r.selected_n_planets},
-          {"selection_rule", r.selection_rule},
-          {"notes", r.notes},
-          {"message", r.message}};
-}
-
-void write_results(const std::string& path, const Project& project, const VelocityData& data, const CompareResult& r) {
-  const bool exists = std::filesystem::exists(path);
-  ResultsFile file(path, exists ? ResultsFile::Mode::kReadWrite : ResultsFile::Mode::kCreate);
-  if (!exists) {
-    file.write_velocity_data(data);
-    file.write_project_text(project.text);
-  }
-  write_comparison(file, r);
-}
 }  // namespace
 
 Command register_compare(CLI::App& app) {
@@ -114,26 +77,6 @@ Command register_compare(CLI::App& app) {
             if (args->jumps_per_step >= 0.0) opt.nested.jumps_per_step = args->jumps_per_step;
             opt.bayes_threshold = std::isnan(args->threshold) ? project.evidence.bayes_threshold : args->threshold;
             if (const std::string v = opt.Validate(); !v.empty()) throw InputError(v);
-            SearchProblem problem = search_problem(project, data, transits);
-            problem.search.max_planets = opt.max_planets;  // [priors] may name planets up to this one
-            const ModelLayout base = problem_layout(problem, 0);
-            auto priors_for = [&](const ModelLayout& layout) { return problem_priors(problem, layout); };
-            // Validate every model's priors before the long computation starts.
-            for (int k = opt.min_planets; k <= opt.max_planets; ++k) {
-              ModelLayout l = base;
-              l.n_planets = k;
-              (void)priors_for(l);
-            }
-            // A quick planet search (seconds) gives the nested sampler periods to jump to.
-            if (opt.max_planets > 0) {
-              SearchOptions so = search_options(project);
-              so.max_planets = opt.max_planets;
-              opt.search_hints = search_signals(search_planets(problem, so));
-            }
-            if (!args->common.quiet) {
-              fmt::print(stderr, "Nested sampling for {}..{} planets: {} points, {} instrument(s), {} live points.\n",
-                         opt.min_planets, opt.max_planets, data.size(), data.n_instruments(), opt.nested.live_points);
-            }
             auto bar = std::make_shared<std::unique_ptr<ProgressBar>>();
             int current_k = 0;
             opt.nested.progress = [bar, &current_k](long it, double ln_z, double ln_rem) {
@@ -141,13 +84,16 @@ Command register_compare(CLI::App& app) {
                                        fmt::format("k = {}  iteration {}  ln Z {:.2f}", current_k, it, ln_z));
             };
             const bool quiet = args->common.quiet;
-            const CompareResult r = compare_planet_counts(
-                data, base, priors_for, opt, [&](int k, const std::string& status) {
-                  current_k = k;
-                  *bar = std::make_unique<ProgressBar>(fmt::format("evidence k={}", k), 1.0, quiet);
-                  if (!quiet && !(*bar)->active()) fmt::print(stderr, "  {}\n", status);
-                },
-                &transits);
+            // compare_project validates every model's priors first; the heading waits for the
+            // first model, so bad input still gives one line on stderr.
+            const CompareResult r = compare_project(project, data, transits, opt, [&](int k, const std::string& status) {
+              if (!quiet && k == opt.min_planets)
+                fmt::print(stderr, "Nested sampling for {}..{} planets: {} points, {} instrument(s), {} live points.\n",
+                           opt.min_planets, opt.max_planets, data.size(), data.n_instruments(), opt.nested.live_points);
+              current_k = k;
+              *bar = std::make_unique<ProgressBar>(fmt::format("evidence k={}", k), 1.0, quiet);
+              if (!quiet && !(*bar)->active()) fmt::print(stderr, "  {}\n", status);
+            });
             bar->reset();
             fmt::print("Model comparison by nested sampling ({} points, {} instrument(s), {} live points, seed {}):\n",
                        data.size(), data.n_instruments(), opt.nested.live_points, opt.nested.seed);
@@ -160,8 +106,8 @@ Command register_compare(CLI::App& app) {
             for (const auto& n : r.notes)
               if (n.rfind("prior: ", 0) != 0) fmt::print("Note: {}\n", n);
             fmt::print("Time: {:.1f} s.\n", r.seconds);
-            if (!args->common.json_path.empty()) write_json(args->common.json_path, to_json(r, data));
-            if (!args->out.empty()) write_results(args->out, project, data, r);
+            if (!args->common.json_path.empty()) write_file_atomic(args->common.json_path, compare_json(r, data));
+            if (!args->out.empty()) save_comparison(args->out, project, data, r);
             bool ok = true;
             for (const auto& row : r.rows)
               if (row.nested.termination != NestedTermination::kConverged) ok = false;

@@ -7,8 +7,10 @@
 
 #include "apsides/error.h"
 #include "apsides/fit.h"
+#include "apsides/json_outputs.h"
 #include "apsides/model_priors.h"
 #include "apsides/project.h"
+#include "apsides/project_stages.h"
 #include "cli/common.h"
 
 namespace apsides::cli {
@@ -33,63 +35,6 @@ struct FitArgs {
 
 std::string fmt_or_dash(double x, const char* spec) {
   return std::isfinite(x) ? fmt::format(fmt::runtime(spec), x) : "-";
-}
-
-nlohmann::json fit_json(const FitResult& fit, const std::vector<PlanetSummary>& planets,
-                        const std::optional<double>& mass) {
-  nlohmann::json j;
-  j["planets"] = nlohmann::json::array();
-  for (const auto& p : planets) {
-    nlohmann::json q;
-    q["label"] = p.label;
-    q["period_d"] = value_json(p.period_d);
-    q["K_ms"] = value_json(p.K_ms);
-    q["ecc"] = value_json(p.ecc);
-    q["omega_deg"] = value_json(p.omega_deg);
-    q["t_conj_bjd"] = value_json(p.t_conj_bjd);
-    q["t_peri_bjd"] = value_json(p.t_peri_bjd);
-    if (mass) {
-      q["msini_mjup"] = value_json(p.msini_mjup);
-      q["msini_mearth"] = value_json(p.msini_mearth);
-      q["a_au"] = value_json(p.a_au);
-    } else {
-      q["msini_mjup"] = nullptr;
-      q["msini_mearth"] = nullptr;
-      q["a_au"] = nullptr;
-    }
-    j["planets"].push_back(q);
-  }
-  j["instruments"] = nlohmann::json::array();
-  const ParameterLayout blocks = fit.parameters();
-  for (const InstrumentBlock* b : blocks.instruments()) {
-    nlohmann::json q;
-    q["name"] = b->label();
-    q["offset_ms"] = value_json(b->offset(fit.theta));
-    q["jitter_ms"] = value_json(b->jitter(fit.theta));
-    q["rms_ms"] = fit.rms_m_s[static_cast<std::size_t>(b->instrument())];
-    j["instruments"].push_back(q);
-  }
-  if (const TrendBlock* t = blocks.trend()) {
-    if (t->order() >= 1) j["trend_c1_ms_per_d"] = value_json(t->coefficient(fit.theta, 1));
-    if (t->order() >= 2) j["trend_c2_ms_per_d2"] = value_json(t->coefficient(fit.theta, 2));
-  }
-  j["n_planets"] = fit.layout.n_planets;
-  j["ln_like"] = fit.log_likelihood;
-  j["ln_like_transits"] = fit.log_likelihood_transits;
-  j["ln_prior"] = fit.log_prior;
-  j["ln_posterior"] = fit.log_posterior;
-  j["chi2"] = fit.chi2;
-  j["k"] = fit.n_free;
-  j["n_points"] = fit.n_points;
-  j["bic"] = fit.bic;
-  j["aicc"] = fit.aicc;
-  j["termination"] = to_string(fit.termination);
-  j["message"] = fit.message;
-  j["theta"] = fit.theta;
-  j["parameter_names"] = fit.names;
-  j["reference_epoch_bjd"] = fit.reference_epoch_bjd;
-  j["note"] = "m sin i is a minimum mass (the inclination is unknown).";
-  return j;
 }
 
 void print_fit(const FitResult& fit, const std::vector<PlanetSummary>& planets, const std::optional<double>& mass) {
@@ -182,42 +127,11 @@ Command register_fit(CLI::App& app) {
             if (args->min_bic_improvement >= 0.0) sp.search.min_bic_improvement = args->min_bic_improvement;
             if (args->planets < 0 && !args->search) args->search = true;
 
-            FitResult fit;
-            nlohmann::json j;
-            if (args->search) {
-              SearchOptions so;
-              so.max_planets = sp.search.max_planets;
-              so.fap_threshold = sp.search.fap_threshold;
-              so.fit.oversample = sp.search.oversample;
-              so.min_bic_improvement = sp.search.min_bic_improvement;
-              const SearchResult sr = search_planets(sp, so);
-              fmt::print("{}\n", sr.FullReport());
-              fit = sr.best();
-              j["search"] = nlohmann::json::array();
-              for (const auto& st : sr.steps) {
-                nlohmann::json q;
-                q["n_planets"] = st.n_planets;
-                q["ln_like"] = st.log_likelihood;
-                q["k"] = st.n_free;
-                q["bic"] = st.bic;
-                q["aicc"] = st.aicc;
-                q["admitting_fap"] = std::isfinite(st.admitting_fap) ? nlohmann::json(st.admitting_fap) : nlohmann::json(nullptr);
-                q["admitting_period_d"] = std::isfinite(st.admitting_period_days) ? nlohmann::json(st.admitting_period_days) : nlohmann::json(nullptr);
-                j["search"].push_back(q);
-              }
-              j["search_message"] = sr.message;
-              j["selected_n_planets"] = sr.selected_n_planets;
-            } else {
-              const FitProblem pb = make_fit_problem(sp, args->planets);
-              fit = fit_map(pb, FitOptions{});
-            }
-            const std::vector<PlanetSummary> planets = derive_planets(fit, mass);
-            print_fit(fit, planets, mass);
-            nlohmann::json fj = fit_json(fit, planets, mass);
-            if (j.is_object()) fj.update(j);
-            fj["data"] = {{"n_points", sp.data.size()}, {"instruments", sp.data.instrument_names},
-                          {"baseline_d", sp.data.baseline_days()}};
-            if (mass) fj["star"] = {{"mass_msun", *mass}, {"mass_err_msun", args->star_mass_err}};
+            const std::optional<int> n = args->search ? std::nullopt : std::optional<int>(args->planets);
+            const FitRun run = run_fit(sp, n);
+            const FitResult& fit = run.fit;
+            if (run.search) fmt::print("{}\n", run.search->FullReport());
+            print_fit(fit, run.planets, mass);
             if (!args->residuals_path.empty()) {
               std::string s = "# time_bjd,residual_ms,uncertainty_ms,instrument\n";
               for (std::size_t i = 0; i < sp.data.size(); ++i) {
@@ -227,7 +141,7 @@ Command register_fit(CLI::App& app) {
               }
               write_file_atomic(args->residuals_path, s);
             }
-            if (!args->common.json_path.empty()) write_json(args->common.json_path, fj);
+            if (!args->common.json_path.empty()) write_file_atomic(args->common.json_path, fit_json(run, sp));
             return fit.success() ? 0 : 1;
           }};
 }

@@ -6,6 +6,7 @@
 #include <csignal>
 
 #include "apsides/error.h"
+#include "apsides/json_outputs.h"
 #include "apsides/project.h"
 #include "apsides/sampling_run.h"
 #include "cli/common.h"
@@ -81,14 +82,7 @@ Command register_sample(CLI::App& app) {
                        result.seconds > 0 ? static_cast<double>(result.evaluations) / result.seconds : 0.0, args->threads);
             fmt::print("Wrote {}{}\n", args->out,
                        result.termination == SamplerTermination::kInterrupted ? " (interrupted; continue with --resume)" : "");
-            if (!args->common.json_path.empty()) {
-              nlohmann::json j;
-              j["sampler"] = {{"walkers", result.walkers}, {"steps", result.steps},
-                              {"burn_in_steps", result.burn_in_steps}, {"rhat_max", result.rhat_max},
-                              {"ess_min", result.ess_min}, {"tau_max", result.tau_max},
-                              {"termination", to_string(result.termination)}, {"message", result.message}};
-              write_json(args->common.json_path, j);
-            }
+            if (!args->common.json_path.empty()) write_file_atomic(args->common.json_path, sampling_json(result));
             return result.termination == SamplerTermination::kInterrupted ? 1 : 0;
           }};
 }

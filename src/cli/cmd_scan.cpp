@@ -9,6 +9,7 @@
 #include "apsides/activity.h"
 #include "apsides/data.h"
 #include "apsides/error.h"
+#include "apsides/json_outputs.h"
 #include "apsides/periodogram.h"
 #include "apsides/project.h"
 #include "cli/common.h"
@@ -27,20 +28,6 @@ struct ScanArgs {
   PeriodogramOptions options;
   CommonOptions common;
 };
-
-nlohmann::json peak_json(const Peak& p, const std::vector<Peak>& peaks, bool window) {
-  nlohmann::json j = {{"period_d", p.period_days}, {"frequency_per_d", p.frequency_per_day}, {"power", p.power}};
-  if (window) return j;
-  j["fap"] = p.fap;
-  j["power_standard"] = p.power_standard;
-  if (p.fap_bootstrap >= 0) j["fap_bootstrap"] = p.fap_bootstrap;
-  j["possible_alias"] = p.alias_of >= 0;
-  if (p.alias_of >= 0) {
-    j["alias_of_period_d"] = peaks[static_cast<std::size_t>(p.alias_of)].period_days;
-    j["alias_window_frequency_per_d"] = p.alias_window_frequency;
-  }
-  return j;
-}
 
 // Indicator periodograms' strongest peaks and the correlations (the shared peaks are
 // printed beside the velocity peaks).
@@ -125,21 +112,11 @@ Command register_scan(CLI::App& app) {
             const ActivityResult activity =
                 data.indicators.empty() ? ActivityResult{} : analyze_activity(data, r, opt, ActivityOptions{});
 
-            nlohmann::json j;
-            j["peaks"] = nlohmann::json::array();
-            for (const Peak& p : r.peaks) j["peaks"].push_back(peak_json(p, r.peaks, false));
-            j["window_peaks"] = nlohmann::json::array();
-            for (const Peak& p : r.window_peaks) j["window_peaks"].push_back(peak_json(p, r.peaks, true));
-            j["normalization"] = to_string(r.normalization);
-            j["method"] = r.method_used;
-            j["grid"] = {{"min_frequency_per_d", r.min_frequency_per_day},
-                         {"max_frequency_per_d", r.max_frequency_per_day},
-                         {"step_per_d", r.frequency_step_per_day},
-                         {"n_frequencies", r.frequency_per_day.size()}};
-            j["data"] = {{"n_points", data.size()}, {"instruments", data.instrument_names}, {"baseline_d", data.baseline_days()}};
-            j["offsets"] = r.offsets_note;
-            if (!activity.empty()) j["activity"] = activity_json(activity);
-            if (!args->common.json_path.empty()) write_json(args->common.json_path, j);
+            if (!args->common.json_path.empty()) {
+              nlohmann::json j = nlohmann::json::parse(scan_json(r, data));
+              if (!activity.empty()) j["activity"] = activity_json(activity);
+              write_json(args->common.json_path, j);
+            }
             if (!args->csv_path.empty()) {
               std::string s = "frequency_per_d,period_d,power,window\n";
               s.reserve(r.power.size() * 64);

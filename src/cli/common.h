@@ -2,7 +2,6 @@
 #pragma once
 
 #include <CLI/CLI.hpp>
-#include <chrono>
 #include <functional>
 #include <optional>
 #include <nlohmann/json.hpp>
@@ -10,6 +9,7 @@
 #include <vector>
 
 #include "apsides/data.h"
+#include "apsides/progress.h"
 #include "apsides/project.h"
 
 namespace apsides::cli {
@@ -67,23 +67,8 @@ nlohmann::json value_json(double x);
 // {"median": m, "minus": m - q16, "plus": q84 - m}
 nlohmann::json quantiles_json(double median, double minus, double plus);
 
-// A one-line progress bar on stderr; silent when stderr is not a terminal or quiet.
-class ProgressBar {
- public:
-  ProgressBar(std::string label, double total, bool quiet);
-  ~ProgressBar();
-  void update(double done, const std::string& extra = "");
-  void finish(const std::string& extra = "");
-  bool active() const { return active_; }
-
- private:
-  std::string label_;
-  double total_;
-  bool active_;
-  std::chrono::steady_clock::time_point start_, last_;
-};
-
-// Whether stderr is a terminal (progress output allowed).
-bool stderr_is_terminal();
+// The progress bar lives in the library (progress.h), shared with the Python module.
+using apsides::ProgressBar;
+using apsides::stderr_is_terminal;
 
 }  // namespace apsides::cli
