@@ -3,22 +3,17 @@ written in plain numpy, against apsides' kernel, at N = 200 and 1000 points.
 
 The data and parameters are the deterministic formula of
 tests/benchmarks/likelihood_benchmark.cpp, so both compute the same number; this script
-checks that (to 1e-9 relative) before it reports the times. Our time comes from one run of
-the benchmark binary (build-bench/ or $APSIDES_BENCH_DIR, made by scripts/bench); numpy's
-from timeit, best of several repeats. Run with /usr/bin/python3 (Debian's numpy).
+checks that (to 1e-9 relative) before it reports the times. Our times come from the
+benchmark binary (build-bench/ or $APSIDES_BENCH_DIR, made by scripts/bench), one column
+per SIMD target ($APSIDES_BENCH_TARGETS, else the best; see _benchlib.py); numpy's from
+timeit, best of several repeats. Run with /usr/bin/python3 (Debian's numpy).
 """
-import json
-import os
-import pathlib
-import subprocess
 import sys
 import timeit
 
 import numpy as np
 
-ROOT = pathlib.Path(__file__).resolve().parent.parent
-BUILD = pathlib.Path(os.environ.get("APSIDES_BENCH_DIR", ROOT / "build-bench"))
-BINARY = BUILD / "tests" / "benchmarks" / "likelihood_benchmark"
+import _benchlib
 
 
 def make_data(n):
@@ -77,35 +72,38 @@ def log_likelihood(theta, t, y, dy, inst):
     return -0.5 * np.sum(r * r / var + np.log(2.0 * np.pi * var))
 
 
-def ours():
-    if not BINARY.exists():
-        sys.exit(f"{BINARY} not found: run scripts/bench first (it builds the benchmarks)")
-    out = subprocess.run([str(BINARY), "--benchmark_filter=^BM_LogLikelihood/",
-                          "--benchmark_format=json", "--benchmark_min_time=0.5"],
-                         check=True, capture_output=True, text=True).stdout
+def ours(target):
     res = {}
-    for b in json.loads(out)["benchmarks"]:
-        n = int(b["name"].split("/")[1])
-        res[n] = (b["per_call"] * 1e6, b["lnL"])
+    for name, b in _benchlib.results("likelihood_benchmark", target,
+                                     ["--benchmark_filter=^BM_LogLikelihood/", "--benchmark_min_time=0.5"]).items():
+        if name.startswith("BM_LogLikelihood/"):
+            res[int(name.split("/")[1])] = (b["per_call"] * 1e6, b["lnL"])
     return res
 
 
 def main():
     theta = to_theta()
-    apsides = ours()
-    print(f"{'N':>6} {'numpy us':>10} {'apsides us':>11} {'ratio':>7}   lnL (numpy / apsides)")
+    targets = _benchlib.targets("likelihood_benchmark")
+    apsides = {t: ours(t) for t in targets}
+    print(f"{'N':>6} {'numpy us':>10}" + "".join(f" {'apsides ' + t + ' us':>18} {'ratio':>6}" for t in targets)
+          + "   lnL (numpy / apsides)")
+    numpy_us = {}
     for n in (200, 1000):
         t, y, dy, inst = make_data(n)
         lnl = log_likelihood(theta, t, y, dy, inst)
         timer = timeit.Timer(lambda: log_likelihood(theta, t, y, dy, inst))
         loops, _ = timer.autorange()
-        numpy_us = min(timer.repeat(repeat=5, number=loops)) / loops * 1e6
-        our_us, our_lnl = apsides[n]
-        same = abs(lnl - our_lnl) <= 1e-9 * abs(lnl)
-        print(f"{n:>6} {numpy_us:>10.1f} {our_us:>11.2f} {numpy_us / our_us:>6.0f}x   "
-              f"{lnl:.10g} / {our_lnl:.10g}{'' if same else '  MISMATCH'}")
+        numpy_us[n] = min(timer.repeat(repeat=5, number=loops)) / loops * 1e6
+        row = f"{n:>6} {numpy_us[n]:>10.1f}"
+        same = True
+        for tg in targets:
+            our_us, our_lnl = apsides[tg][n]
+            same = same and abs(lnl - our_lnl) <= 1e-9 * abs(lnl)
+            row += f" {our_us:>18.2f} {numpy_us[n] / our_us:>5.0f}x"
+        print(row + f"   {lnl:.10g} / {apsides[targets[0]][n][1]:.10g}{'' if same else '  MISMATCH'}")
         if not same:
             sys.exit("numpy and apsides disagree on lnL: the comparison is not like for like")
+    _benchlib.save_reference("likelihood", {"numpy_us": numpy_us})
 
 
 if __name__ == "__main__":

@@ -501,13 +501,7 @@ void assemble(std::shared_ptr<const Prepared> s, int n_cube, RvEvidenceProblem& 
   problem.complete_point = [s](std::span<double> theta, std::mt19937_64* rng) {
     std::vector<KeplerianModel::OffsetConditional> cond;
     if (!std::isfinite(likelihood(*s, theta, true, &cond))) return -kInf;
-    const auto instruments = s->layout().instruments();
-    for (std::size_t q = 0; q < s->integrated.size(); ++q) {
-      const auto& c = cond[q];
-      double g = std::clamp(c.mean_m_s, c.lower_m_s, c.upper_m_s);
-      if (rng != nullptr) g = truncated_normal_draw(c.mean_m_s, c.sd_m_s, c.lower_m_s, c.upper_m_s, *rng);
-      theta[instruments[static_cast<std::size_t>(s->integrated[q].instrument)]->offset_index()] = g;
-    }
+    s->posterior.velocities()->complete_offsets(theta.first(s->n_total), s->integrated, rng);
     return likelihood(*s, theta, false);  // the same terms with the offsets in place, none integrated
   };
 }

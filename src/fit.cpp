@@ -348,12 +348,12 @@ struct Residuals {
   std::vector<double> r, sigma;
 };
 
+// Residuals of the model at theta, the noise model's correlated part (a GP's conditional
+// mean) removed: what the residual periodogram of the search looks at.
 Residuals residuals_of(const FitProblem& pb, const std::vector<double>& theta) {
-  const KeplerianModel km(pb.data, pb.layout);
+  const PosteriorModel model = make_posterior(pb.data, pb.layout, pb.priors, TransitData{});
   Residuals out;
-  out.r = km.residuals(theta);
-  out.sigma = km.variances(theta);
-  for (double& s : out.sigma) s = std::sqrt(s);
+  model.velocities()->residuals(theta, true, out.r, out.sigma);
   return out;
 }
 
@@ -731,6 +731,7 @@ ModelLayout problem_layout(const SearchProblem& sp, int n_planets) {
   layout.trend = sp.model.trend;
   layout.fit_jitter = sp.model.fit_jitter;
   layout.transit_jitter_planets = sp.transit_jitter_planets;
+  layout.noise = sp.model.noise;
   return layout;
 }
 

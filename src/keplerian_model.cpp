@@ -91,6 +91,14 @@ Trend parse_trend(const std::string& text, const std::string& where) {
                                where, text));
 }
 
+std::string to_string(NoiseKind kind) { return kind == NoiseKind::kWhite ? "white" : "gp"; }
+
+NoiseKind parse_noise_kind(const std::string& text, const std::string& where) {
+  if (text == "white") return NoiseKind::kWhite;
+  if (text == "gp") return NoiseKind::kGaussianProcess;
+  throw InputError(fmt::format("{}: noise kind is '{}'; it must be \"white\" or \"gp\"", where, text));
+}
+
 std::size_t ModelLayout::n_params() const { return ParameterLayout::from(*this, {}).n_params(); }
 
 std::size_t ModelLayout::planet_index(int planet) const {
@@ -163,6 +171,11 @@ ModelLayout layout_of(const ParameterLayout& p) {
   L.trend = p.trend() == nullptr ? Trend::kNone : static_cast<Trend>(p.trend()->order());
   for (const auto& b : p.blocks())
     if (b->kind() == BlockKind::kTransitJitter) L.transit_jitter_planets.push_back(b->label()[0] - 'b');
+  if (const GpBlock* g = p.gaussian_process()) {
+    L.noise.kind = NoiseKind::kGaussianProcess;
+    L.noise.kernel = g->kernel();
+    L.noise.per_instrument_amplitude = g->per_instrument();
+  }
   return L;
 }
 }  // namespace

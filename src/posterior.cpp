@@ -157,12 +157,10 @@ void write_posterior(ResultsFile& file, const ModelLayout& layout, const std::ve
   file.set_attribute("/diagnostics", "tau_max", result.tau_max);
   file.set_attribute("/diagnostics", "burn_in_rule", std::string("first half of the steps discarded"));
 
-  const long steps = result.steps;
-  const long first = result.burn_in_steps + 1;
-  if (steps < first) return;
-  const std::size_t walkers = static_cast<std::size_t>(result.walkers);
-  const long rows = steps - first + 1;
-  const long stride = std::max<long>(1, static_cast<long>((static_cast<std::size_t>(rows) * walkers + max_samples - 1) / max_samples));
+  // The kept draws: stored steps after burn-in (results_file.h).
+  const ResultsFile::StepSelection sel = file.select_steps(result.burn_in_steps, result.steps, max_samples);
+  if (sel.rows == 0) return;
+  const long first = sel.first, steps = sel.last, stride = sel.stride;
   const std::vector<double> samples = file.read_chain_rows(first, steps, stride);
   const DerivedChains derived = derive_posterior(std::span<const double>(samples.data(), samples.size()), layout, options);
   (void)dim;
@@ -226,10 +224,8 @@ RunSummary summarize_run(const ResultsFile& file) {
   const auto names = file.read_strings("/parameters/names");
   const auto units = file.read_strings("/parameters/units");
   const std::size_t dim = names.size();
-  const long first = r.burn_in_steps + 1;
-  const long rows = r.steps - first + 1;
-  const long stride = std::max<long>(1, static_cast<long>((static_cast<std::size_t>(std::max(rows, 1L)) * r.walkers + 199999) / 200000));
-  const auto samples = file.read_chain_rows(first, r.steps, stride);
+  const ResultsFile::StepSelection sel = file.select_steps(r.burn_in_steps, r.steps, 200000);
+  const auto samples = sel.rows ? file.read_chain_rows(sel.first, sel.last, sel.stride) : std::vector<double>{};
   const std::size_t n = dim ? samples.size() / dim : 0;
   for (std::size_t p = 0; p < dim; ++p) {
     std::vector<double> v(n);

@@ -8,6 +8,7 @@
 #include <fstream>
 #include <set>
 #include <sstream>
+#include <tuple>
 #include <toml++/toml.h>
 
 #include "apsides/error.h"
@@ -19,7 +20,8 @@ namespace fs = std::filesystem;
 namespace {
 
 struct Ctx {
-  std::string path;
+  std::string path;      // the project file, for messages
+  std::string base_dir;  // resolves relative data paths
   std::string where(const toml::node& n, const std::string& key) const {
     const auto& src = n.source();
     if (src.begin.line > 0) return fmt::format("{}:{}: {}", path, src.begin.line, key);
@@ -83,6 +85,34 @@ std::string get_string(const Ctx& ctx, const toml::table& t, const std::string& 
   if (!n) return fallback;
   if (n->is_string()) return *n->value<std::string>();
   throw InputError(fmt::format("{} must be a string", ctx.where(*n, full(table, key))));
+}
+
+// A list of distinct, non-empty strings.
+std::vector<std::string> get_string_list(const Ctx& ctx, const toml::table& t, const std::string& table,
+                                         const std::string& key) {
+  const toml::node* n = t.get(key);
+  std::vector<std::string> out;
+  if (!n) return out;
+  const std::string where = ctx.where(*n, full(table, key));
+  if (!n->is_array()) throw InputError(fmt::format("{} must be a list of strings like [\"a\", \"b\"]", where));
+  for (const auto& e : *n->as_array()) {
+    if (!e.is_string()) throw InputError(fmt::format("{} must be a list of strings like [\"a\", \"b\"]", where));
+    std::string v = *e.value<std::string>();
+    if (v.empty()) throw InputError(fmt::format("{} holds an empty name", where));
+    if (std::find(out.begin(), out.end(), v) != out.end())
+      throw InputError(fmt::format("{} names '{}' twice", where, v));
+    out.push_back(std::move(v));
+  }
+  return out;
+}
+
+// A `time_offset` key (days added to every time of a file), when present.
+std::optional<double> get_time_offset(const Ctx& ctx, const toml::table& t, const std::string& table) {
+  bool has = false;
+  const double v = get_number(ctx, t, table, "time_offset", 0.0, &has);
+  if (!has) return std::nullopt;
+  check_time_offset(v, ctx.where(*t.get("time_offset"), full(table, "time_offset")));
+  return v;
 }
 
 const toml::table* get_table(const Ctx& ctx, const toml::table& root, const std::string& key) {
@@ -202,8 +232,9 @@ PriorSpec parse_prior_entry(const Ctx& ctx, const std::string& name, const toml:
   return spec;
 }
 
-// [limits]: its own table function (the other tables may be split the same way).
-void parse_limits_table(const Ctx& ctx, const toml::table& root, LimitsSettings& l) {
+// [limits]: detection limits by injection-recovery (limits.h).
+void parse_limits(const Ctx& ctx, const toml::table& root, Project& pr) {
+  LimitsSettings& l = pr.limits;
   const toml::table* t = get_table(ctx, root, "limits");
   if (!t) return;
   check_keys(ctx, *t, "limits", {"enabled", "period_cells", "mass_cells", "injections", "seed", "min_period_d",
@@ -248,6 +279,195 @@ void parse_limits_table(const Ctx& ctx, const toml::table& root, LimitsSettings&
   }
 }
 
+// One function per table; each reads its own table(s) from the root and fills `pr`. To
+// add a table: write its function and add it to kTables (the unknown-key check of the
+// root reads the names from there); to add a key: add it to the table's key list and read it.
+
+void parse_star(const Ctx& ctx, const toml::table& root, Project& pr) {
+  const toml::table* t = get_table(ctx, root, "star");
+  if (!t) return;
+  check_keys(ctx, *t, "star", {"name", "mass_msun", "mass_err_msun", "radius_rsun", "radius_err_rsun"});
+  auto at = [&](const char* key) { return ctx.where(*t->get(key), full("star", key)); };
+  pr.star.name = get_string(ctx, *t, "star", "name", "");
+  bool has = false;
+  double m = get_number(ctx, *t, "star", "mass_msun", 0, &has);
+  if (has) {
+    if (!(m > 0)) throw InputError(fmt::format("{} is {}; it must be > 0", at("mass_msun"), m));
+    pr.star.mass_msun = m;
+  }
+  pr.star.mass_err_msun = get_number(ctx, *t, "star", "mass_err_msun", 0.0);
+  if (pr.star.mass_err_msun < 0) throw InputError(fmt::format("{} is {}; it must be >= 0", at("mass_err_msun"), pr.star.mass_err_msun));
+  if (has && pr.star.mass_err_msun >= m) throw InputError(fmt::format("{} is {}; it must be below star.mass_msun = {}", at("mass_err_msun"), pr.star.mass_err_msun, m));
+  double r = get_number(ctx, *t, "star", "radius_rsun", 0, &has);
+  if (has) {
+    if (!(r > 0)) throw InputError(fmt::format("{} is {}; it must be > 0", at("radius_rsun"), r));
+    pr.star.radius_rsun = r;
+  }
+  pr.star.radius_err_rsun = get_number(ctx, *t, "star", "radius_err_rsun", 0.0);
+  if (pr.star.radius_err_rsun < 0) throw InputError(fmt::format("{} is {}; it must be >= 0", at("radius_err_rsun"), pr.star.radius_err_rsun));
+  if (pr.star.radius_rsun && pr.star.radius_err_rsun >= *pr.star.radius_rsun) throw InputError(fmt::format("{} is {}; it must be below star.radius_rsun = {}", at("radius_err_rsun"), pr.star.radius_err_rsun, *pr.star.radius_rsun));
+  if (!has && pr.star.radius_err_rsun > 0) throw InputError(fmt::format("{} is given without star.radius_rsun", at("radius_err_rsun")));
+}
+
+// The `file` key of a [[velocities]] / [[transits]] block: resolved path and its origin.
+std::pair<std::string, std::string> block_file(const Ctx& ctx, const toml::table& t, const std::string& table,
+                                               const char* kind) {
+  const std::string f = get_string(ctx, t, table, "file", "");
+  if (!t.get("file")) throw InputError(fmt::format("{}:{}: [[{}]] block needs a 'file' key", ctx.path, t.source().begin.line, table));
+  if (f.empty()) throw InputError(fmt::format("{}: is empty; it must name a {} file", ctx.where(*t.get("file"), table + ".file"), kind));
+  return {resolve(ctx.base_dir, f), fmt::format("{}:{}", ctx.path, t.get("file")->source().begin.line)};
+}
+
+void parse_velocities(const Ctx& ctx, const toml::table& root, Project& pr) {
+  const std::string T = "velocities";
+  for (const toml::table* t : get_array_of_tables(ctx, root, T)) {
+    check_keys(ctx, *t, T, {"file", "instrument", "velocity_unit", "time_offset", "repeats", "indicators", "columns"});
+    VelocitySource s;
+    std::tie(s.file, s.origin) = block_file(ctx, *t, T, "velocity");
+    VelocityFileOptions& o = s.options;
+    o.declared_at = s.origin;
+    o.instrument = get_string(ctx, *t, T, "instrument", "");
+    if (const toml::node* n = t->get("instrument"); n && o.instrument.empty())
+      throw InputError(fmt::format("{} is empty; give a label or leave the key out", ctx.where(*n, "velocities.instrument")));
+    if (const toml::node* n = t->get("velocity_unit"))
+      o.unit = parse_velocity_unit(get_string(ctx, *t, T, "velocity_unit", ""), ctx.where(*n, "velocities.velocity_unit"));
+    o.time_offset_days = get_time_offset(ctx, *t, T);
+    if (const toml::node* n = t->get("repeats"))
+      o.repeats = parse_repeat_policy(get_string(ctx, *t, T, "repeats", ""), ctx.where(*n, "velocities.repeats"));
+    if (t->get("indicators")) o.indicators = get_string_list(ctx, *t, T, "indicators");
+    o.columns = get_string_list(ctx, *t, T, "columns");
+    if (const toml::node* n = t->get("columns"); n && o.columns.size() < 3)
+      throw InputError(fmt::format("{} names {} column(s); it must name every column of the file, at least time, "
+                                   "velocity and uncertainty", ctx.where(*n, "velocities.columns"), o.columns.size()));
+    pr.velocities.push_back(s);
+  }
+  if (pr.velocities.empty()) {
+    throw InputError(fmt::format("{}: no [[velocities]] block; a project needs at least one velocity file", ctx.path));
+  }
+}
+
+void parse_transits(const Ctx& ctx, const toml::table& root, Project& pr) {
+  const std::string T = "transits";
+  for (const toml::table* t : get_array_of_tables(ctx, root, T)) {
+    check_keys(ctx, *t, T, {"file", "planet", "fit_jitter", "time_offset"});
+    TransitSource s;
+    std::tie(s.file, s.origin) = block_file(ctx, *t, T, "transit-time");
+    s.planet = get_string(ctx, *t, T, "planet", "");
+    if (t->get("planet") && (s.planet.size() != 1 || s.planet[0] < 'b' || s.planet[0] > 'z'))
+      throw InputError(fmt::format("{} is '{}'; planets are labelled b, c, d, ... (a letter from b to z)", ctx.where(*t->get("planet"), "transits.planet"), s.planet));
+    s.fit_jitter = get_bool(ctx, *t, T, "fit_jitter", false);
+    s.time_offset_days = get_time_offset(ctx, *t, T);
+    pr.transits.push_back(s);
+  }
+}
+
+void parse_search(const Ctx& ctx, const toml::table& root, Project& pr) {
+  const toml::table* t = get_table(ctx, root, "search");
+  if (!t) return;
+  check_keys(ctx, *t, "search", {"max_planets", "min_period_d", "max_period_d", "oversample", "fap_threshold"});
+  auto at = [&](const char* key) { return ctx.where(*t->get(key), full("search", key)); };
+  pr.search.max_planets = static_cast<int>(get_integer(ctx, *t, "search", "max_planets", 3));
+  if (pr.search.max_planets < 0 || pr.search.max_planets > 10)
+    throw InputError(fmt::format("{} is {}; it must be between 0 and 10", at("max_planets"), pr.search.max_planets));
+  bool has;
+  double v = get_number(ctx, *t, "search", "min_period_d", 0, &has);
+  if (has) {
+    if (!(v > 0)) throw InputError(fmt::format("{} is {}; it must be > 0", at("min_period_d"), v));
+    pr.search.min_period_d = v;
+  }
+  v = get_number(ctx, *t, "search", "max_period_d", 0, &has);
+  if (has) {
+    if (!(v > 0)) throw InputError(fmt::format("{} is {}; it must be > 0", at("max_period_d"), v));
+    pr.search.max_period_d = v;
+  }
+  if (pr.search.min_period_d && pr.search.max_period_d && !(*pr.search.min_period_d < *pr.search.max_period_d))
+    throw InputError(fmt::format("{}: search.min_period_d = {} is not below search.max_period_d = {}", ctx.path, *pr.search.min_period_d, *pr.search.max_period_d));
+  pr.search.oversample = get_number(ctx, *t, "search", "oversample", 10.0);
+  if (!(pr.search.oversample >= 1.0)) throw InputError(fmt::format("{} is {}; it must be >= 1", at("oversample"), pr.search.oversample));
+  pr.search.fap_threshold = get_number(ctx, *t, "search", "fap_threshold", 1e-3);
+  if (!(pr.search.fap_threshold > 0 && pr.search.fap_threshold < 1)) throw InputError(fmt::format("{} is {}; it must be in (0, 1)", at("fap_threshold"), pr.search.fap_threshold));
+}
+
+void parse_model(const Ctx& ctx, const toml::table& root, Project& pr) {
+  const toml::table* t = get_table(ctx, root, "model");
+  if (!t) return;
+  check_keys(ctx, *t, "model", {"planets", "trend", "fit_jitter", "eccentricity", "periastron_outside_star"});
+  if (const toml::node* n = t->get("planets")) {
+    long k = get_integer(ctx, *t, "model", "planets", 0);
+    if (k < 0 || k > 10) throw InputError(fmt::format("{} is {}; it must be between 0 and 10", ctx.where(*n, "model.planets"), k));
+    pr.model.planets = static_cast<int>(k);
+  }
+  if (const toml::node* n = t->get("trend"))
+    pr.model.trend = parse_trend(get_string(ctx, *t, "model", "trend", "none"), ctx.where(*n, "model.trend"));
+  pr.model.fit_jitter = get_bool(ctx, *t, "model", "fit_jitter", true);
+  pr.model.periastron_outside_star = get_bool(ctx, *t, "model", "periastron_outside_star", true);
+  if (const toml::node* n = t->get("eccentricity")) {
+    const std::string e = get_string(ctx, *t, "model", "eccentricity", "uniform");
+    if (e == "uniform") pr.model.eccentricity = EccentricityPriorKind::kUniform;
+    else if (e == "beta") pr.model.eccentricity = EccentricityPriorKind::kBeta;
+    else if (e == "circular") pr.model.eccentricity = EccentricityPriorKind::kCircular;
+    else throw InputError(fmt::format("{} is '{}'; it must be \"uniform\", \"beta\" or \"circular\"", ctx.where(*n, "model.eccentricity"), e));
+  }
+}
+
+void parse_priors(const Ctx& ctx, const toml::table& root, Project& pr) {
+  const toml::table* t = get_table(ctx, root, "priors");
+  if (!t) return;
+  for (const auto& [k, v] : *t) {
+    pr.priors.push_back(parse_prior_entry(ctx, std::string(k.str()), v));
+    const int line = k.source().begin.line > 0 ? static_cast<int>(k.source().begin.line) : static_cast<int>(v.source().begin.line);
+    pr.priors.back().origin = fmt::format("{}:{}", ctx.path, line);
+  }
+}
+
+void parse_sampler(const Ctx& ctx, const toml::table& root, Project& pr) {
+  const toml::table* t = get_table(ctx, root, "sampler");
+  if (!t) return;
+  check_keys(ctx, *t, "sampler", {"walkers", "max_steps", "ess_target", "rhat_max", "min_tau_multiple", "seed", "checkpoint_steps"});
+  auto at = [&](const char* key) { return ctx.where(*t->get(key), full("sampler", key)); };
+  auto& s = pr.sampler;
+  s.walkers = static_cast<int>(get_integer(ctx, *t, "sampler", "walkers", 0));
+  if (s.walkers != 0 && (s.walkers < 4 || s.walkers % 2 != 0))
+    throw InputError(fmt::format("{} is {}; it must be an even number >= 4 (or 0 for automatic)", at("walkers"), s.walkers));
+  s.max_steps = get_integer(ctx, *t, "sampler", "max_steps", s.max_steps);
+  if (s.max_steps < 10) throw InputError(fmt::format("{} is {}; it must be >= 10", at("max_steps"), s.max_steps));
+  s.ess_target = get_number(ctx, *t, "sampler", "ess_target", s.ess_target);
+  if (!(s.ess_target > 0)) throw InputError(fmt::format("{} is {}; it must be > 0", at("ess_target"), s.ess_target));
+  s.rhat_max = get_number(ctx, *t, "sampler", "rhat_max", s.rhat_max);
+  if (!(s.rhat_max > 1.0)) throw InputError(fmt::format("{} is {}; it must be > 1", at("rhat_max"), s.rhat_max));
+  s.min_tau_multiple = get_number(ctx, *t, "sampler", "min_tau_multiple", s.min_tau_multiple);
+  long seed = get_integer(ctx, *t, "sampler", "seed", 1);
+  if (seed < 0) throw InputError(fmt::format("{} is {}; it must be >= 0", at("seed"), seed));
+  s.seed = static_cast<unsigned long long>(seed);
+  s.checkpoint_steps = get_integer(ctx, *t, "sampler", "checkpoint_steps", s.checkpoint_steps);
+  if (s.checkpoint_steps < 1) throw InputError(fmt::format("{} is {}; it must be >= 1", at("checkpoint_steps"), s.checkpoint_steps));
+}
+
+void parse_evidence(const Ctx& ctx, const toml::table& root, Project& pr) {
+  const toml::table* t = get_table(ctx, root, "evidence");
+  if (!t) return;
+  check_keys(ctx, *t, "evidence", {"live_points", "seed", "bayes_threshold"});
+  auto at = [&](const char* key) { return ctx.where(*t->get(key), full("evidence", key)); };
+  auto& e = pr.evidence;
+  e.live_points = static_cast<int>(get_integer(ctx, *t, "evidence", "live_points", e.live_points));
+  if (e.live_points < 20) throw InputError(fmt::format("{} is {}; it must be >= 20", at("live_points"), e.live_points));
+  long seed = get_integer(ctx, *t, "evidence", "seed", 1);
+  if (seed < 0) throw InputError(fmt::format("{} is {}; it must be >= 0", at("seed"), seed));
+  e.seed = static_cast<unsigned long long>(seed);
+  e.bayes_threshold = get_number(ctx, *t, "evidence", "bayes_threshold", e.bayes_threshold);
+}
+
+// The project's tables, in the order they are read (a later table may rely on an earlier one).
+struct TableEntry {
+  const char* name;
+  void (*parse)(const Ctx&, const toml::table& root, Project&);
+};
+constexpr TableEntry kTables[] = {
+    {"star", parse_star},     {"velocities", parse_velocities}, {"transits", parse_transits},
+    {"search", parse_search}, {"model", parse_model},           {"priors", parse_priors},
+    {"sampler", parse_sampler}, {"evidence", parse_evidence}, {"limits", parse_limits},
+};
+
 }  // namespace
 
 std::string to_string(InjectionNoise n) { return n == InjectionNoise::kWhite ? "white" : "residuals"; }
@@ -274,7 +494,7 @@ RecoveryTest parse_recovery_test(const std::string& text, const std::string& whe
 }
 
 Project parse_project(const std::string& text, const std::string& path, const std::string& base_dir) {
-  Ctx ctx{path};
+  Ctx ctx{path, base_dir};
   toml::table root;
   try {
     root = toml::parse(text, path);
@@ -286,148 +506,10 @@ Project parse_project(const std::string& text, const std::string& path, const st
   Project pr;
   pr.path = path;
   pr.text = text;
-  check_keys(ctx, root, "", {"star", "velocities", "transits", "search", "model", "priors", "sampler", "evidence", "limits"});
-
-  if (const toml::table* t = get_table(ctx, root, "star")) {
-    check_keys(ctx, *t, "star", {"name", "mass_msun", "mass_err_msun", "radius_rsun", "radius_err_rsun"});
-    pr.star.name = get_string(ctx, *t, "star", "name", "");
-    bool has = false;
-    double m = get_number(ctx, *t, "star", "mass_msun", 0, &has);
-    if (has) {
-      if (!(m > 0)) throw InputError(fmt::format("{} is {}; it must be > 0", ctx.where(*t->get("mass_msun"), "star.mass_msun"), m));
-      pr.star.mass_msun = m;
-    }
-    pr.star.mass_err_msun = get_number(ctx, *t, "star", "mass_err_msun", 0.0);
-    if (pr.star.mass_err_msun < 0) throw InputError(fmt::format("{} is {}; it must be >= 0", ctx.where(*t->get("mass_err_msun"), "star.mass_err_msun"), pr.star.mass_err_msun));
-    if (has && pr.star.mass_err_msun >= m) throw InputError(fmt::format("{} is {}; it must be below star.mass_msun = {}", ctx.where(*t->get("mass_err_msun"), "star.mass_err_msun"), pr.star.mass_err_msun, m));
-    double r = get_number(ctx, *t, "star", "radius_rsun", 0, &has);
-    if (has) {
-      if (!(r > 0)) throw InputError(fmt::format("{} is {}; it must be > 0", ctx.where(*t->get("radius_rsun"), "star.radius_rsun"), r));
-      pr.star.radius_rsun = r;
-    }
-    pr.star.radius_err_rsun = get_number(ctx, *t, "star", "radius_err_rsun", 0.0);
-    if (pr.star.radius_err_rsun < 0) throw InputError(fmt::format("{} is {}; it must be >= 0", ctx.where(*t->get("radius_err_rsun"), "star.radius_err_rsun"), pr.star.radius_err_rsun));
-    if (pr.star.radius_rsun && pr.star.radius_err_rsun >= *pr.star.radius_rsun) throw InputError(fmt::format("{} is {}; it must be below star.radius_rsun = {}", ctx.where(*t->get("radius_err_rsun"), "star.radius_err_rsun"), pr.star.radius_err_rsun, *pr.star.radius_rsun));
-    if (!has && pr.star.radius_err_rsun > 0) throw InputError(fmt::format("{} is given without star.radius_rsun", ctx.where(*t->get("radius_err_rsun"), "star.radius_err_rsun")));
-  }
-
-  for (const toml::table* t : get_array_of_tables(ctx, root, "velocities")) {
-    check_keys(ctx, *t, "velocities", {"file", "instrument", "velocity_unit"});
-    VelocitySource s;
-    const std::string f = get_string(ctx, *t, "velocities", "file", "");
-    if (!t->get("file")) throw InputError(fmt::format("{}:{}: [[velocities]] block needs a 'file' key", path, t->source().begin.line));
-    if (f.empty()) throw InputError(fmt::format("{}: is empty; it must name a velocity file", ctx.where(*t->get("file"), "velocities.file")));
-    s.file = resolve(base_dir, f);
-    s.origin = fmt::format("{}:{}", path, t->get("file")->source().begin.line);
-    s.options.instrument = get_string(ctx, *t, "velocities", "instrument", "");
-    if (const toml::node* n = t->get("instrument"); n && s.options.instrument.empty())
-      throw InputError(fmt::format("{} is empty; give a label or leave the key out", ctx.where(*n, "velocities.instrument")));
-    if (const toml::node* n = t->get("velocity_unit"))
-      s.options.unit = parse_velocity_unit(get_string(ctx, *t, "velocities", "velocity_unit", ""), ctx.where(*n, "velocities.velocity_unit"));
-    pr.velocities.push_back(s);
-  }
-  if (pr.velocities.empty()) {
-    throw InputError(fmt::format("{}: no [[velocities]] block; a project needs at least one velocity file", path));
-  }
-
-  for (const toml::table* t : get_array_of_tables(ctx, root, "transits")) {
-    check_keys(ctx, *t, "transits", {"file", "planet", "fit_jitter"});
-    TransitSource s;
-    const std::string f = get_string(ctx, *t, "transits", "file", "");
-    if (!t->get("file")) throw InputError(fmt::format("{}:{}: [[transits]] block needs a 'file' key", path, t->source().begin.line));
-    if (f.empty()) throw InputError(fmt::format("{}: is empty; it must name a transit-time file", ctx.where(*t->get("file"), "transits.file")));
-    s.file = resolve(base_dir, f);
-    s.origin = fmt::format("{}:{}", path, t->get("file")->source().begin.line);
-    s.planet = get_string(ctx, *t, "transits", "planet", "b");
-    if (s.planet.size() != 1 || s.planet[0] < 'b' || s.planet[0] > 'z')
-      throw InputError(fmt::format("{} is '{}'; planets are labelled b, c, d, ... (a letter from b to z)", ctx.where(*t->get("planet"), "transits.planet"), s.planet));
-    s.fit_jitter = get_bool(ctx, *t, "transits", "fit_jitter", false);
-    pr.transits.push_back(s);
-  }
-
-  if (const toml::table* t = get_table(ctx, root, "search")) {
-    check_keys(ctx, *t, "search", {"max_planets", "min_period_d", "max_period_d", "oversample", "fap_threshold"});
-    pr.search.max_planets = static_cast<int>(get_integer(ctx, *t, "search", "max_planets", 3));
-    if (pr.search.max_planets < 0 || pr.search.max_planets > 10)
-      throw InputError(fmt::format("{} is {}; it must be between 0 and 10", ctx.where(*t->get("max_planets"), "search.max_planets"), pr.search.max_planets));
-    bool has;
-    double v = get_number(ctx, *t, "search", "min_period_d", 0, &has);
-    if (has) {
-      if (!(v > 0)) throw InputError(fmt::format("{} is {}; it must be > 0", ctx.where(*t->get("min_period_d"), "search.min_period_d"), v));
-      pr.search.min_period_d = v;
-    }
-    v = get_number(ctx, *t, "search", "max_period_d", 0, &has);
-    if (has) {
-      if (!(v > 0)) throw InputError(fmt::format("{} is {}; it must be > 0", ctx.where(*t->get("max_period_d"), "search.max_period_d"), v));
-      pr.search.max_period_d = v;
-    }
-    if (pr.search.min_period_d && pr.search.max_period_d && !(*pr.search.min_period_d < *pr.search.max_period_d))
-      throw InputError(fmt::format("{}: search.min_period_d = {} is not below search.max_period_d = {}", path, *pr.search.min_period_d, *pr.search.max_period_d));
-    pr.search.oversample = get_number(ctx, *t, "search", "oversample", 10.0);
-    if (!(pr.search.oversample >= 1.0)) throw InputError(fmt::format("{} is {}; it must be >= 1", ctx.where(*t->get("oversample"), "search.oversample"), pr.search.oversample));
-    pr.search.fap_threshold = get_number(ctx, *t, "search", "fap_threshold", 1e-3);
-    if (!(pr.search.fap_threshold > 0 && pr.search.fap_threshold < 1)) throw InputError(fmt::format("{} is {}; it must be in (0, 1)", ctx.where(*t->get("fap_threshold"), "search.fap_threshold"), pr.search.fap_threshold));
-  }
-
-  if (const toml::table* t = get_table(ctx, root, "model")) {
-    check_keys(ctx, *t, "model", {"planets", "trend", "fit_jitter", "eccentricity", "periastron_outside_star"});
-    if (const toml::node* n = t->get("planets")) {
-      long k = get_integer(ctx, *t, "model", "planets", 0);
-      if (k < 0 || k > 10) throw InputError(fmt::format("{} is {}; it must be between 0 and 10", ctx.where(*n, "model.planets"), k));
-      pr.model.planets = static_cast<int>(k);
-    }
-    if (const toml::node* n = t->get("trend"))
-      pr.model.trend = parse_trend(get_string(ctx, *t, "model", "trend", "none"), ctx.where(*n, "model.trend"));
-    pr.model.fit_jitter = get_bool(ctx, *t, "model", "fit_jitter", true);
-    pr.model.periastron_outside_star = get_bool(ctx, *t, "model", "periastron_outside_star", true);
-    if (const toml::node* n = t->get("eccentricity")) {
-      const std::string e = get_string(ctx, *t, "model", "eccentricity", "uniform");
-      if (e == "uniform") pr.model.eccentricity = EccentricityPriorKind::kUniform;
-      else if (e == "beta") pr.model.eccentricity = EccentricityPriorKind::kBeta;
-      else if (e == "circular") pr.model.eccentricity = EccentricityPriorKind::kCircular;
-      else throw InputError(fmt::format("{} is '{}'; it must be \"uniform\", \"beta\" or \"circular\"", ctx.where(*n, "model.eccentricity"), e));
-    }
-  }
-
-  if (const toml::table* t = get_table(ctx, root, "priors")) {
-    for (const auto& [k, v] : *t) {
-      pr.priors.push_back(parse_prior_entry(ctx, std::string(k.str()), v));
-      const int line = k.source().begin.line > 0 ? static_cast<int>(k.source().begin.line) : static_cast<int>(v.source().begin.line);
-      pr.priors.back().origin = fmt::format("{}:{}", path, line);
-    }
-  }
-
-  if (const toml::table* t = get_table(ctx, root, "sampler")) {
-    check_keys(ctx, *t, "sampler", {"walkers", "max_steps", "ess_target", "rhat_max", "min_tau_multiple", "seed", "checkpoint_steps"});
-    auto& s = pr.sampler;
-    s.walkers = static_cast<int>(get_integer(ctx, *t, "sampler", "walkers", 0));
-    if (s.walkers != 0 && (s.walkers < 4 || s.walkers % 2 != 0))
-      throw InputError(fmt::format("{} is {}; it must be an even number >= 4 (or 0 for automatic)", ctx.where(*t->get("walkers"), "sampler.walkers"), s.walkers));
-    s.max_steps = get_integer(ctx, *t, "sampler", "max_steps", s.max_steps);
-    if (s.max_steps < 10) throw InputError(fmt::format("{} is {}; it must be >= 10", ctx.where(*t->get("max_steps"), "sampler.max_steps"), s.max_steps));
-    s.ess_target = get_number(ctx, *t, "sampler", "ess_target", s.ess_target);
-    if (!(s.ess_target > 0)) throw InputError(fmt::format("{} is {}; it must be > 0", ctx.where(*t->get("ess_target"), "sampler.ess_target"), s.ess_target));
-    s.rhat_max = get_number(ctx, *t, "sampler", "rhat_max", s.rhat_max);
-    if (!(s.rhat_max > 1.0)) throw InputError(fmt::format("{} is {}; it must be > 1", ctx.where(*t->get("rhat_max"), "sampler.rhat_max"), s.rhat_max));
-    s.min_tau_multiple = get_number(ctx, *t, "sampler", "min_tau_multiple", s.min_tau_multiple);
-    long seed = get_integer(ctx, *t, "sampler", "seed", 1);
-    if (seed < 0) throw InputError(fmt::format("{} is {}; it must be >= 0", ctx.where(*t->get("seed"), "sampler.seed"), seed));
-    s.seed = static_cast<unsigned long long>(seed);
-    s.checkpoint_steps = get_integer(ctx, *t, "sampler", "checkpoint_steps", s.checkpoint_steps);
-    if (s.checkpoint_steps < 1) throw InputError(fmt::format("{} is {}; it must be >= 1", ctx.where(*t->get("checkpoint_steps"), "sampler.checkpoint_steps"), s.checkpoint_steps));
-  }
-
-  if (const toml::table* t = get_table(ctx, root, "evidence")) {
-    check_keys(ctx, *t, "evidence", {"live_points", "seed", "bayes_threshold"});
-    auto& e = pr.evidence;
-    e.live_points = static_cast<int>(get_integer(ctx, *t, "evidence", "live_points", e.live_points));
-    if (e.live_points < 20) throw InputError(fmt::format("{} is {}; it must be >= 20", ctx.where(*t->get("live_points"), "evidence.live_points"), e.live_points));
-    long seed = get_integer(ctx, *t, "evidence", "seed", 1);
-    if (seed < 0) throw InputError(fmt::format("{} is {}; it must be >= 0", ctx.where(*t->get("seed"), "evidence.seed"), seed));
-    e.seed = static_cast<unsigned long long>(seed);
-    e.bayes_threshold = get_number(ctx, *t, "evidence", "bayes_threshold", e.bayes_threshold);
-  }
-  parse_limits_table(ctx, root, pr.limits);
+  std::set<std::string> tables;
+  for (const TableEntry& e : kTables) tables.insert(e.name);
+  check_keys(ctx, root, "", tables);
+  for (const TableEntry& e : kTables) e.parse(ctx, root, pr);
   return pr;
 }
 
@@ -484,7 +566,10 @@ TransitData Project::load_transits() const {
     }
     TransitFileOptions o;
     o.planet = s.planet;
+    o.time_offset_days = s.time_offset_days;
     parts.push_back(read_transit_file(s.file, o));
+    for (std::string& label : parts.back().planet)
+      if (label.empty()) label = "b";  // no `planet` key and no planet column
   }
   if (parts.empty()) return all;
   all.reference_epoch_bjd = parts.front().reference_epoch_bjd;
@@ -506,9 +591,21 @@ TransitData Project::load_transits() const {
 namespace apsides {
 std::vector<int> Project::transit_jitter_planets() const {
   std::vector<int> out;
+  auto add = [&](const std::string& label) {
+    const int j = label.size() == 1 ? label[0] - 'b' : -1;
+    if (j >= 0 && std::find(out.begin(), out.end(), j) == out.end()) out.push_back(j);
+  };
   for (const TransitSource& t : transits) {
-    const int j = t.planet.size() == 1 ? t.planet[0] - 'b' : -1;
-    if (t.fit_jitter && j >= 0 && std::find(out.begin(), out.end(), j) == out.end()) out.push_back(j);
+    if (!t.fit_jitter) continue;
+    if (!t.planet.empty()) {
+      add(t.planet);
+      continue;
+    }
+    // No `planet` key: every planet of the file's label column (b without one).
+    TransitFileOptions o;
+    o.time_offset_days = t.time_offset_days;
+    const TransitData d = read_transit_file(t.file, o);
+    for (const std::string& label : d.planet) add(label.empty() ? "b" : label);
   }
   std::sort(out.begin(), out.end());
   return out;

@@ -17,22 +17,17 @@ namespace apsides {
 
 namespace {
 
-// Streams steps to the results file at each checkpoint; nothing touches the file between.
+// Streams steps to the results file at each checkpoint (results_file.h: ChainWriter);
+// nothing touches the file between.
 class FileObserver : public SamplerObserver {
  public:
-  FileObserver(ResultsFile& file, long max_steps, const SamplingRunOptions& o)
-      : file_(file), max_steps_(max_steps), options_(o) {}
+  FileObserver(ResultsFile& file, long max_steps, const SamplingRunOptions& o, std::size_t diagnostic_rows)
+      : writer_(file, diagnostic_rows), max_steps_(max_steps), options_(o) {}
   void on_step(long step, std::span<const double> p, std::span<const double> lp) override {
-    positions_.emplace_back(p.begin(), p.end());
-    log_prob_.emplace_back(lp.begin(), lp.end());
+    writer_.add_step(step, p, lp);
     if (options_.progress) options_.progress(step, max_steps_, status_);
   }
-  void on_checkpoint(const SamplerState& state) override {
-    file_.append_chain_rows(positions_, log_prob_);
-    positions_.clear();
-    log_prob_.clear();
-    file_.write_checkpoint(state);
-  }
+  void on_checkpoint(const SamplerState& state) override { writer_.checkpoint(state); }
   void on_check(const SamplerResult& r) override {
     status_ = fmt::format("step {}  R-hat {:.3f}  ESS {:.0f}  tau {:.0f}", r.steps, r.rhat_max, r.ess_min, r.tau_max);
   }
@@ -40,11 +35,10 @@ class FileObserver : public SamplerObserver {
   const std::string& status() const { return status_; }
 
  private:
-  ResultsFile& file_;
+  ChainWriter writer_;
   long max_steps_;
   const SamplingRunOptions& options_;
   std::string status_ = "first check pending";
-  std::vector<std::vector<double>> positions_, log_prob_;
 };
 
 // Ball half-widths around the MAP, from each block: small against any posterior width,
@@ -174,7 +168,7 @@ SamplingRun sample_project(const Project& project, const SamplingRunOptions& arg
 
   const PosteriorModel posterior = make_posterior(data, layout, priors, transits);
   const LogDensity log_post = [&](std::span<const double> th) { return posterior.log_posterior(th); };
-  FileObserver observer(*file, opt.max_steps, args);
+  FileObserver observer(*file, opt.max_steps, args, opt.diagnostic_rows);
   run.result = run_sampler(log_post, layout.n_params(), opt, start, &observer, args.resume ? &resume_rows : nullptr);
   if (run.result.termination == SamplerTermination::kFailed) return run;
   DerivedOptions dopt;

@@ -2,8 +2,9 @@
 
 #include <fmt/format.h>
 
-#include <cerrno>
 #include <algorithm>
+#include <cctype>
+#include <cerrno>
 #include <cmath>
 #include <cstdlib>
 #include <filesystem>
@@ -24,11 +25,17 @@ std::string trim(const std::string& s) {
   return s.substr(b, e - b);
 }
 
+bool is_blank(char c) { return c == ' ' || c == '\t' || c == '\r' || c == '\n' || c == '\v' || c == '\f'; }
+
 std::vector<std::string> split_whitespace(const std::string& s) {
   std::vector<std::string> out;
-  std::istringstream in(s);
-  std::string f;
-  while (in >> f) out.push_back(f);
+  std::size_t i = 0;
+  while (i < s.size()) {
+    while (i < s.size() && is_blank(s[i])) ++i;
+    const std::size_t b = i;
+    while (i < s.size() && !is_blank(s[i])) ++i;
+    if (i > b) out.emplace_back(s, b, i - b);
+  }
   return out;
 }
 
@@ -88,6 +95,23 @@ std::string suggest_key(const std::string& key, const std::vector<std::string>& 
 }
 
 std::string file_stem(const std::string& path) { return fs::path(path).stem().string(); }
+
+bool is_missing_value(const std::string& text) {
+  if (text.empty()) return true;
+  // CDS tables write a missing value as dashes ("---").
+  if (text.find_first_not_of('-') == std::string::npos) return true;
+  std::string t = text;
+  if (t.front() == '+' || t.front() == '-') t.erase(0, 1);
+  if (t.size() != 3) return false;
+  for (char& c : t) c = static_cast<char>(std::tolower(static_cast<unsigned char>(c)));
+  return t == "nan";
+}
+
+void require_filled(const TextRow& row, std::size_t column, const std::string& path) {
+  if (column < row.fields.size() && row.fields[column].empty()) {
+    throw InputError(fmt::format("{}:{}: column {} is empty", path, row.line, column + 1));
+  }
+}
 
 bool looks_numeric(const std::string& text) {
   if (text.empty()) return false;
@@ -176,6 +200,7 @@ TextTable read_text_table(const std::string& path) {
         // Spreadsheet exports quote fields: "2459000.5","3.2" reads as 2459000.5, 3.2.
         if (f.size() >= 2 && f.front() == '"' && f.back() == '"') f = trim(f.substr(1, f.size() - 2));
         // Numbers separated by both commas and blanks on one line: mixed delimiters.
+        if (f.find_first_of(" \t") == std::string::npos) continue;
         const std::vector<std::string> parts = split_whitespace(f);
         bool all_numeric = parts.size() > 1;
         for (const auto& q : parts) all_numeric = all_numeric && looks_numeric(q);
@@ -189,9 +214,8 @@ TextTable read_text_table(const std::string& path) {
     }
     // A header row names columns: none of its fields is a number. (A data row with a
     // typo in one field still has numbers elsewhere and gets a precise error below.)
-    bool none_numeric = true;
-    for (const auto& f : fields) none_numeric = none_numeric && !looks_numeric(f);
-    const bool is_header_candidate = table.header.empty() && table.rows.empty() && none_numeric;
+    bool is_header_candidate = table.header.empty() && table.rows.empty();
+    for (std::size_t i = 0; is_header_candidate && i < fields.size(); ++i) is_header_candidate = !looks_numeric(fields[i]);
     if (is_header_candidate) {
       table.header = fields;
       table.delimiter = this_delim;
@@ -208,11 +232,6 @@ TextTable read_text_table(const std::string& path) {
           "{}:{}: mixed delimiters: this line is {}-separated but line {} is {}-separated",
           path, line_no, this_delim == ',' ? "comma" : "whitespace", delimiter_line,
           table.delimiter == ',' ? "comma" : "whitespace"));
-    }
-    for (std::size_t i = 0; i < fields.size(); ++i) {
-      if (fields[i].empty()) {
-        throw InputError(fmt::format("{}:{}: column {} is empty", path, line_no, i + 1));
-      }
     }
     table.rows.push_back(TextRow{line_no, std::move(fields)});
   }

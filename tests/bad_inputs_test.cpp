@@ -110,11 +110,132 @@ TEST_CASE("zero and negative velocity uncertainties are rejected") {
         "DIR/rv.csv:1: uncertainty is -0.4; it must be > 0");
 }
 
-TEST_CASE("a time observed twice by the same instrument is rejected, naming both lines") {
+TEST_CASE("a time observed twice by one instrument is kept with a warning, or refused with repeats = \"error\"") {
   Scratch s("duplicate_time");
-  CHECK(s.velocity_error("2459000.5,1.0,0.5\n2459001.5,2.0,0.5\n2459000.5,3.0,0.5\n") ==
-        "DIR/rv.csv:3: time 2459000.5 repeats DIR/rv.csv:1 for instrument 'rv'; each "
-        "instrument may observe a given time once");
+  const std::string text = "2459000.5,1.0,0.5\n2459001.5,2.0,0.5\n2459000.5,3.0,0.5\n";
+  const std::string p = s.write("rv.csv", text);
+  apsides::VelocityData d;
+  REQUIRE_NOTHROW(d = apsides::load_velocities({p}, {{}}));
+  CHECK(d.size() == 3);
+  REQUIRE(d.warnings.size() == 1);
+  CHECK(d.warnings[0] == p + ": 1 repeated (time, instrument) pair, every point kept: lines 1 and 3 (time 2459000.5, "
+                             "'rv') (repeats = \"average\" merges them, \"error\" refuses them)");
+  apsides::VelocityFileOptions strict;
+  strict.repeats = apsides::RepeatPolicy::kError;
+  CHECK(s.velocity_error(text, strict) ==
+        "DIR/rv.csv:3: time 2459000.5 repeats DIR/rv.csv:1 for instrument 'rv' (repeats = \"error\"; \"keep\" or "
+        "\"average\" accept it)");
+  // The same through a project.
+  const std::string toml = s.write("project.toml", "[[velocities]]\nfile = \"rv.csv\"\nrepeats = \"error\"\n");
+  CHECK(s.error_of([&] { apsides::load_project(toml).load_velocities(); }) ==
+        "DIR/rv.csv:3: time 2459000.5 repeats DIR/rv.csv:1 for instrument 'rv' (repeats = \"error\"; \"keep\" or "
+        "\"average\" accept it)");
+}
+
+TEST_CASE("an unknown repeats value is rejected with the three accepted ones") {
+  Scratch s("repeats_value");
+  CHECK(s.project_error("[[velocities]]\nfile = \"rv.csv\"\nrepeats = \"avg\"\n") ==
+        "project.toml:3: velocities.repeats is 'avg'; it must be \"keep\", \"average\" or \"error\"");
+}
+
+TEST_CASE("a reduced time without a declared offset is rejected naming the common offsets") {
+  Scratch s("reduced_time");
+  CHECK(s.velocity_error("1408.853661,-5678.7,2.3\n") ==
+        "DIR/rv.csv:1: time 1408.853661 looks reduced (a full BJD is 2400000 to 2500000): declare the offset that "
+        "was subtracted, time_offset in [[velocities]] or --time-offset; here 2457000 or 2450000 give a date in "
+        "1968-2050 (common offsets: 2457000, 2450000, 2400000, 2400000.5 = MJD; 0 keeps times as given)");
+  CHECK(s.velocity_error("59000.5,1.0,0.5\n") ==
+        "DIR/rv.csv:1: time 59000.5 looks reduced (a full BJD is 2400000 to 2500000): declare the offset that was "
+        "subtracted, time_offset in [[velocities]] or --time-offset; here 2400000 or 2400000.5 give a date in "
+        "1968-2050 (common offsets: 2457000, 2450000, 2400000, 2400000.5 = MJD; 0 keeps times as given)");
+  CHECK(s.velocity_error("250000.5,1.0,0.5\n") ==
+        "DIR/rv.csv:1: time 250000.5 looks reduced (a full BJD is 2400000 to 2500000): declare the offset that was "
+        "subtracted, time_offset in [[velocities]] or --time-offset; here no common offset gives a date in "
+        "1968-2050 (common offsets: 2457000, 2450000, 2400000, 2400000.5 = MJD; 0 keeps times as given)");
+  CHECK(s.velocity_error("3459000.5,1.0,0.5\n") ==
+        "DIR/rv.csv:1: time 3459000.5 is not a BJD_TDB (a full BJD is 2400000 to 2500000)");
+  CHECK(s.transit_error("0,13408.2,0.001\n") ==
+        "DIR/tt.csv:1: mid-transit time 13408.2 looks reduced (a full BJD is 2400000 to 2500000): declare the offset "
+        "that was subtracted, time_offset in [[transits]] or --time-offset; here 2450000 gives a date in 1968-2050 "
+        "(common offsets: 2457000, 2450000, 2400000, 2400000.5 = MJD; 0 keeps times as given)");
+}
+
+TEST_CASE("a time offset given twice, or one that does not make a full BJD, is rejected") {
+  Scratch s("offset_twice");
+  apsides::VelocityFileOptions tess;
+  tess.time_offset_days = 2457000.0;
+  CHECK(s.velocity_error("2459000.5,1.0,0.5\n", tess) ==
+        "DIR/rv.csv:1: time 2459000.5 is already a full BJD, but time_offset = 2457000 is declared for this file (the "
+        "offset would count twice); drop time_offset or --time-offset");
+  CHECK(s.velocity_error("59000.5,1.0,0.5\n", tess) ==
+        "DIR/rv.csv:1: time 59000.5 + time_offset 2457000 = 2516000.500000 is not a full BJD (2400000 to 2500000); "
+        "check time_offset");
+  CHECK(s.project_error("[[velocities]]\nfile = \"rv.csv\"\ntime_offset = -2457000\n") ==
+        "project.toml:3: velocities.time_offset is -2457000; it must be between 0 and 2500000 (the day subtracted "
+        "from BJD, e.g. 2457000)");
+  CHECK(s.project_error("[[velocities]]\nfile = \"rv.csv\"\ntime_offset = \"2457000\"\n") ==
+        "project.toml:3: velocities.time_offset must be a number");
+  // The project's offset and a different --time-offset: exit 2 naming both.
+  s.write("rv.dat", "1408.853661 -5678.7 2.3\n1409.844622 -5678.9 2.4\n1412.858886 -5679.1 2.2\n");
+  const std::string toml = s.write("project.toml", "[[velocities]]\nfile = \"rv.dat\"\ntime_offset = 2457000\n");
+  const auto r = apsides::test::run_command(apsides::test::apsides_binary() + " scan " + toml + " --time-offset 2450000");
+  CHECK(r.status == 2);
+  CHECK(r.output.find("--time-offset 2450000: the [[velocities]] block at " + toml +
+                      ":2 declares time_offset = 2457000 for " + s.dir + "/rv.dat; the offset is given twice (keep "
+                      "one)") != std::string::npos);
+}
+
+TEST_CASE("an empty indicator cell is a missing value; an indicator empty on every row is rejected") {
+  Scratch s("indicator_empty");
+  const std::string gaps = "t,v,e,sval\n2459000.5,1.0,0.5,\n2459001.5,2.0,0.5,0.2\n";
+  CHECK(s.velocity_error(gaps) == "no error");
+  s.write("rv.csv", "t,v,e,sval\n2459000.5,1.0,0.5,\n2459001.5,2.0,0.5,\n");
+  const auto named = [&](const std::string& extra) {
+    return s.error_of([&] {
+      apsides::parse_project("[[velocities]]\nfile = \"rv.csv\"\n" + extra, "project.toml", s.dir).load_velocities();
+    });
+  };
+  CHECK(named("indicators = [\"sval\"]\n") ==
+        "DIR/rv.csv: column 'sval' (named by indicators at project.toml:2) is empty on every row");
+  // Not named: the empty column is left out, with a warning.
+  apsides::VelocityData d;
+  REQUIRE_NOTHROW(d = apsides::load_velocities({s.dir + "/rv.csv"}, {{}}));
+  CHECK(d.indicators.empty());
+  REQUIRE(d.warnings.size() == 1);
+  CHECK(d.warnings[0] == s.dir + "/rv.csv: column(s) empty on every row, not kept: sval");
+}
+
+TEST_CASE("indicators naming a column the file does not have, or a main column, are rejected") {
+  Scratch s("indicator_missing");
+  s.write("rv.csv", "t,v,e,sval\n2459000.5,1.0,0.5,0.1\n2459001.5,2.0,0.5,0.2\n");
+  const auto named = [&](const std::string& extra) {
+    return s.error_of([&] {
+      apsides::parse_project("[[velocities]]\nfile = \"rv.csv\"\n" + extra, "project.toml", s.dir).load_velocities();
+    });
+  };
+  CHECK(named("indicators = [\"sval\", \"fwhm\"]\n") ==
+        "DIR/rv.csv: has no column 'fwhm' (named by indicators at project.toml:2); its columns are: t, v, e, sval");
+  CHECK(named("indicators = [\"t\"]\n") ==
+        "DIR/rv.csv: column 't' (named by indicators at project.toml:2) is the time column; indicators are the columns "
+        "after time, velocity, uncertainty and instrument");
+  CHECK(named("columns = [\"t\", \"v\", \"e\"]\n") == "DIR/rv.csv:2: has 4 columns but columns at project.toml:2 names 3");
+  CHECK(s.project_error("[[velocities]]\nfile = \"rv.csv\"\nindicators = \"sval\"\n") ==
+        "project.toml:3: velocities.indicators must be a list of strings like [\"a\", \"b\"]");
+  CHECK(s.project_error("[[velocities]]\nfile = \"rv.csv\"\nindicators = [\"sval\", \"sval\"]\n") ==
+        "project.toml:3: velocities.indicators names 'sval' twice");
+  CHECK(s.project_error("[[velocities]]\nfile = \"rv.csv\"\ncolumns = [\"t\", \"v\"]\n") ==
+        "project.toml:3: velocities.columns names 2 column(s); it must name every column of the file, at least "
+        "time, velocity and uncertainty");
+}
+
+TEST_CASE("bad indicator values are rejected naming the column; main columns may not be empty") {
+  Scratch s("indicator_values");
+  CHECK(s.velocity_error("t,v,e,sval\n2459000.5,1.0,0.5,0.1\n2459001.5,1.0,0.5,abc\n") ==
+        "DIR/rv.csv:3: sval (column 4) is 'abc'; it must be a number");
+  CHECK(s.velocity_error("t,v,e,sval,sval_err\n2459000.5,1.0,0.5,0.1,-0.01\n") ==
+        "DIR/rv.csv:2: sval_err (column 5) is -0.01; an uncertainty must be >= 0");
+  CHECK(s.velocity_error("t,v,e,sval\n2459000.5,,0.5,0.1\n") == "DIR/rv.csv:2: column 2 is empty");
+  CHECK(s.velocity_error("t,v,e,inst\n2459000.5,1.0,0.5,\n2459001.5,1.0,0.5,north\n") == "DIR/rv.csv:2: column 4 is empty");
 }
 
 TEST_CASE("comma and whitespace delimiters mixed across lines are rejected") {
@@ -207,7 +328,9 @@ TEST_CASE("files mixing full BJD and reduced times are rejected") {
   Scratch s("full_vs_reduced");
   const std::string a = s.write("a.csv", "2459000.5,1.0,0.5\n2459010.5,1.0,0.5\n");
   const std::string b = s.write("b.csv", "59005.5,1.0,0.5\n");
-  CHECK(s.error_of([&] { apsides::load_velocities({a, b}, {{}, {}}); }) ==
+  apsides::VelocityFileOptions as_given;  // time_offset = 0: b's times are kept as they are
+  as_given.time_offset_days = 0.0;
+  CHECK(s.error_of([&] { apsides::load_velocities({a, b}, {{}, as_given}); }) ==
         "DIR/b.csv:1: time 59005.5 and DIR/a.csv:2: time 2459010.5 are 2400005 days apart; are "
         "some times full BJD and others reduced (BJD - 2400000 or similar)? Give every file the "
         "same kind");

@@ -3,6 +3,7 @@
 #include <doctest/doctest.h>
 #include <fmt/format.h>
 
+#include <algorithm>
 #include <cmath>
 #include <fstream>
 #include <nlohmann/json.hpp>
@@ -57,6 +58,24 @@ std::string demo(const std::string& name) { return test::source_dir() + "/datase
 nlohmann::json demo_truth() {
   std::ifstream in(demo("truth.json"));
   return nlohmann::json::parse(in);
+}
+
+// The transits of one planet in epoch order, the first `keep` of them.
+TransitData first_transits(const TransitData& all, std::size_t keep) {
+  std::vector<std::size_t> idx(all.size());
+  for (std::size_t i = 0; i < idx.size(); ++i) idx[i] = i;
+  std::sort(idx.begin(), idx.end(), [&](std::size_t a, std::size_t b) { return all.epoch[a] < all.epoch[b]; });
+  TransitData d;
+  d.reference_epoch_bjd = all.reference_epoch_bjd;
+  for (std::size_t k = 0; k < std::min(keep, idx.size()); ++k) {
+    const std::size_t i = idx[k];
+    d.epoch.push_back(all.epoch[i]);
+    d.time_days.push_back(all.time_days[i]);
+    d.uncertainty_days.push_back(all.uncertainty_days[i]);
+    d.planet.push_back(all.planet[i]);
+    d.origin.push_back(all.origin[i]);
+  }
+  return d;
 }
 
 }  // namespace
@@ -246,6 +265,7 @@ TEST_CASE("ephemeris: prediction uncertainties match a Monte Carlo of refits") {
   opt.search_ttv = false;
   opt.n_next = 3;
   opt.from_bjd = 2459000.0 + 1.2 + 4.05 * 400.5;  // epochs 401, 402, 403
+  opt.prediction_model = EphemerisModel::kLinear;
   const auto base = fit_ephemeris(make_transits(2459000.0, n, t0, s), opt);
   REQUIRE(base.predictions.size() == 3);
   CHECK(base.predictions[0].epoch == 401);
@@ -289,6 +309,195 @@ TEST_CASE("ephemeris: the WASP-12b times of Wong et al. 2022 show the published 
   CHECK(r.delta_chi2 > 100.0);
   // The period is WASP-12b's ~1.0914 d.
   CHECK(r.period_days.value == doctest::Approx(1.09142).epsilon(1e-5));
+}
+
+TEST_CASE("ephemeris: TRAPPIST-1 f, last 5 of 33 times held out, lies within 3 sigma of every prediction") {
+  // Agol et al. 2021, PSJ 2, 1: 33 mid-transit times of TRAPPIST-1 f, O-C up to ~45 min
+  // from the interactions with e and g. Fit the first 28, predict the other 5 (epochs 96,
+  // 103, 156, 157, 159: up to 64 orbits ahead).
+  const TransitData all = read_transit_file(test::real_data("trappist1_transits_agol2021.csv")).for_planet("f");
+  REQUIRE(all.size() == 33);
+  const TransitData train = first_transits(all, 28);
+  REQUIRE(train.epoch.back() == 95);
+  EphemerisOptions opt;
+  opt.n_next = 64;  // epochs 96 ... 159
+  const auto r = fit_ephemeris(train, opt);
+  REQUIRE(r.termination == "converged");
+  // The data choose the timing-variation model (the rule of ephemeris.h).
+  CHECK(r.prediction_model == EphemerisModel::kSinusoid);
+  CHECK(r.prediction.chosen_automatically);
+  CHECK(r.prediction.excess_scatter_days > 0.0);
+  REQUIRE(r.predictions.size() == 64);
+  const TransitData held = first_transits(all, 33);
+  int checked = 0;
+  for (std::size_t i = 28; i < 33; ++i) {
+    const long long n = held.epoch[i];
+    const auto it = std::find_if(r.predictions.begin(), r.predictions.end(), [&](const auto& p) { return p.epoch == n; });
+    REQUIRE(it != r.predictions.end());
+    const double observed = held.time_days[i];
+    const double z = (observed - it->t_days) / it->err_days;
+    // The linear ephemeris' own covariance (what the table printed before): far too narrow.
+    const double lin_t = r.linear.time_at(static_cast<double>(n), r.n_ref);
+    const double lin_sigma = r.linear.sigma_at(static_cast<double>(n), r.n_ref);
+    const double z_lin = (observed - lin_t) / lin_sigma;
+    CAPTURE(n);
+    CAPTURE(z);
+    CAPTURE(z_lin);
+    CHECK(std::fabs(z) < 3.0);
+    CHECK(std::fabs(z_lin) > 3.0);
+    ++checked;
+  }
+  CHECK(checked == 5);
+  // No period change is claimed: the quadratic's curvature is part of the variation.
+  CHECK(r.delta_bic < 0.0);
+  CHECK(r.delta_bic_vs_sinusoid > 0.0);
+  CHECK_FALSE(r.period_change_favoured);
+  CHECK(r.FullReport().find("period change favoured") == std::string::npos);
+}
+
+TEST_CASE("ephemeris: the predictive refit of the TRAPPIST-1 f sinusoid agrees with scipy") {
+  // Outside reference: scipy.optimize.least_squares on the sinusoid model with every
+  // variance sigma_i^2 + s^2, s from brentq on chi2(s) = dof, sigma_pred from the Jacobian.
+  const TransitData all = read_transit_file(test::real_data("trappist1_transits_agol2021.csv")).for_planet("f");
+  const TransitData train = first_transits(all, 28);
+  EphemerisOptions opt;
+  opt.n_next = 64;
+  const auto r = fit_ephemeris(train, opt);
+  REQUIRE(r.prediction_model == EphemerisModel::kSinusoid);
+  std::vector<double> m, t, s;
+  for (std::size_t i = 0; i < train.size(); ++i) {
+    m.push_back(static_cast<double>(train.epoch[i] - r.n_ref));
+    t.push_back(train.time_days[i]);
+    s.push_back(train.uncertainty_days[i]);
+  }
+  const double nu0 = r.ttv.nu_per_epoch;
+  const auto py = test::run_python(fmt::format(
+      "import numpy as np\n"
+      "from scipy.optimize import least_squares, brentq\n"
+      "m = np.array({}); t = np.array({}); s = np.array({})\n"
+      "def model(p, x): return p[0] + p[1]*x + p[3]*np.sin(2*np.pi*p[2]*x) + p[4]*np.cos(2*np.pi*p[2]*x)\n"
+      "p0 = np.array([{:.17g}, {:.17g}, {:.17g}, {:.17g}, {:.17g}])\n"
+      "def fit(j):\n"
+      "    se = np.sqrt(s**2 + j**2)\n"
+      "    return least_squares(lambda p: (t - model(p, m)) / se, p0, x_scale='jac', xtol=1e-15, ftol=1e-15, gtol=1e-15)\n"
+      "dof = len(m) - 5\n"
+      "j = brentq(lambda j: np.sum(fit(j).fun**2) - dof, 1e-7, 0.05, xtol=1e-12)\n"
+      "f = fit(j); cov = np.linalg.inv(f.jac.T @ f.jac)\n"
+      "x = 159 - {}\n"
+      "g = np.array([1, x, 2*np.pi*x*(f.x[3]*np.cos(2*np.pi*f.x[2]*x) - f.x[4]*np.sin(2*np.pi*f.x[2]*x)),\n"
+      "              np.sin(2*np.pi*f.x[2]*x), np.cos(2*np.pi*f.x[2]*x)])\n"
+      "print('%.12g %.12g %.12g' % (j, model(f.x, x), np.sqrt(g @ cov @ g + j**2)))\n",
+      py_list(m), py_list(t), py_list(s), r.ttv.t_ref_days, r.ttv.period_fit_days, nu0, r.ttv.a_days, r.ttv.b_days,
+      r.n_ref));
+  const auto v = parse_numbers(py.output);
+  REQUIRE_MESSAGE(v.size() == 3, py.output);
+  const auto it = std::find_if(r.predictions.begin(), r.predictions.end(), [](const auto& p) { return p.epoch == 159; });
+  REQUIRE(it != r.predictions.end());
+  CHECK(r.prediction.excess_scatter_days == doctest::Approx(v[0]).epsilon(1e-4));
+  CHECK(std::fabs(it->t_days - v[1]) < 1e-3 * it->err_days);
+  CHECK(it->err_days == doctest::Approx(v[2]).epsilon(1e-3));
+  CHECK(r.prediction.refit_chi2 == doctest::Approx(r.prediction.refit_dof).epsilon(1e-6));
+}
+
+TEST_CASE("ephemeris: the excess scatter of a linear ephemeris matches numpy, and enters every sigma") {
+  // Linear data with 4x more scatter than stated: s from chi2(s) = dof (numpy weighted
+  // polyfit inside scipy brentq), sigma_pred = sqrt(x^T C x + s^2).
+  std::mt19937_64 rng(11);
+  std::normal_distribution<double> gauss(0.0, 1.0);
+  std::vector<long long> n;
+  std::vector<double> t, s;
+  for (long long e = 0; e < 60; e += 1 + static_cast<long long>(rng() % 4)) {
+    n.push_back(e);
+    s.push_back(2e-4 + 1e-4 * static_cast<double>(e % 3));
+    t.push_back(0.7 + 3.3 * static_cast<double>(e) + 1e-3 * gauss(rng));
+  }
+  EphemerisOptions opt;
+  opt.search_ttv = false;
+  opt.n_next = 1;
+  const auto r = fit_ephemeris(make_transits(2459000.0, n, t, s), opt);
+  REQUIRE(r.prediction_model == EphemerisModel::kLinear);
+  REQUIRE(r.predictions.size() == 1);
+  const double x = static_cast<double>(r.predictions[0].epoch - r.n_ref);
+  std::vector<double> m;
+  for (long long e : n) m.push_back(static_cast<double>(e - r.n_ref));
+  const auto py = test::run_python(fmt::format(
+      "import numpy as np\n"
+      "from scipy.optimize import brentq\n"
+      "m = np.array({}); t = np.array({}); s = np.array({})\n"
+      "def fit(j):\n"
+      "    w = 1/np.sqrt(s**2 + j**2)\n"
+      "    c, cov = np.polyfit(m, t, 1, w=w, cov='unscaled')\n"
+      "    return c, cov, np.sum(((t - np.polyval(c, m))*w)**2)\n"
+      "j = brentq(lambda j: fit(j)[2] - (len(m) - 2), 1e-9, 0.1, xtol=1e-14)\n"
+      "c, cov, _ = fit(j); g = np.array([{}, 1.0])\n"
+      "print('%.12g %.12g %.12g' % (j, np.polyval(c, {}), np.sqrt(g @ cov @ g + j**2)))\n",
+      py_list(m), py_list(t), py_list(s), x, x));
+  const auto v = parse_numbers(py.output);
+  REQUIRE_MESSAGE(v.size() == 3, py.output);
+  CHECK(r.prediction.excess_scatter_days == doctest::Approx(v[0]).epsilon(1e-6));
+  CHECK(r.predictions[0].t_days == doctest::Approx(v[1]).epsilon(1e-12));
+  CHECK(r.predictions[0].err_days == doctest::Approx(v[2]).epsilon(1e-6));
+  // The scatter dominates: the covariance-only sigma of the mean ephemeris is far smaller.
+  CHECK(r.predictions[0].err_days > 3.0 * r.linear.sigma_at(static_cast<double>(r.predictions[0].epoch), r.n_ref));
+}
+
+TEST_CASE("ephemeris: the BIC rule picks linear, quadratic or sinusoid as the data require") {
+  std::mt19937_64 rng(5);
+  std::normal_distribution<double> gauss(0.0, 1.0);
+  auto make = [&](double curvature, double ttv_amp) {
+    std::vector<long long> n;
+    std::vector<double> t, s;
+    for (long long e = 0; e < 300; e += 1 + static_cast<long long>(rng() % 5)) {
+      const double x = static_cast<double>(e);
+      n.push_back(e);
+      s.push_back(5e-4);
+      t.push_back(2.0 + 4.4 * x + 0.5 * curvature * x * x + ttv_amp * std::sin(2 * M_PI * x / 41.0 + 0.3) +
+                  5e-4 * gauss(rng));
+    }
+    return fit_ephemeris(make_transits(2459000.0, n, t, s));
+  };
+  const auto lin = make(0.0, 0.0);
+  CHECK(lin.prediction_model == EphemerisModel::kLinear);
+  CHECK(lin.prediction.excess_scatter_days < 2e-4);
+  const auto quad = make(2e-7, 0.0);
+  CHECK(quad.prediction_model == EphemerisModel::kQuadratic);
+  CHECK(quad.period_change_favoured);
+  const auto sine = make(0.0, 4e-3);
+  CHECK(sine.prediction_model == EphemerisModel::kSinusoid);
+  CHECK_FALSE(sine.period_change_favoured);
+  // Asking for a model overrides the rule, and the report says which one the rule prefers.
+  EphemerisOptions forced;
+  forced.prediction_model = EphemerisModel::kLinear;
+  std::vector<long long> n;
+  std::vector<double> t, s;
+  for (long long e = 0; e < 300; e += 3) {
+    n.push_back(e);
+    s.push_back(5e-4);
+    t.push_back(2.0 + 4.4 * static_cast<double>(e) + 4e-3 * std::sin(2 * M_PI * static_cast<double>(e) / 41.0));
+  }
+  const auto asked = fit_ephemeris(make_transits(2459000.0, n, t, s), forced);
+  CHECK(asked.prediction_model == EphemerisModel::kLinear);
+  CHECK_FALSE(asked.prediction.chosen_automatically);
+  // With the variation unmodelled, the linear predictions carry it as excess scatter
+  // (a sinusoid of amplitude A has rms A / sqrt 2).
+  CHECK(asked.prediction.excess_scatter_days == doctest::Approx(4e-3 / std::sqrt(2.0)).epsilon(0.1));
+  CHECK(asked.FullReport().find("the sinusoid ephemeris is better supported") != std::string::npos);
+}
+
+TEST_CASE("ephemeris: WASP-12b reports its decay with the timing-variation search on, and every note once") {
+  // Wong et al. 2022, AJ 163, 175: dP/dE = (-1.031 +/- 0.033) x 1e-9 d/orbit. A long-period
+  // sinusoid can mimic the curvature; the quadratic must still beat it.
+  const TransitData data = read_transit_file(test::real_data("wasp12b_transits_wong2022.txt"));
+  const auto r = fit_ephemeris(data);
+  REQUIRE(r.ttv.fitted);
+  CHECK(r.delta_bic < -10.0);
+  CHECK(r.delta_bic_vs_sinusoid < 0.0);
+  CHECK(r.delta_bic_vs_best_other < 0.0);
+  CHECK(r.period_change_favoured);
+  CHECK(r.prediction_model == EphemerisModel::kQuadratic);
+  CHECK(r.FullReport().find("(period change favoured)") != std::string::npos);
+  for (std::size_t i = 0; i < r.notes.size(); ++i)
+    for (std::size_t j = i + 1; j < r.notes.size(); ++j) CHECK(r.notes[i] != r.notes[j]);
 }
 
 TEST_CASE("ephemeris: recovers the demo planet's period and T0 within 2 sigma and predicts 10 transits") {

@@ -75,7 +75,7 @@ TEST_SUITE("posterior_model") {
     REQUIRE(blocks.n_params() == 9u);
     CHECK(blocks.names() == config.names(data.instrument_names));
     PosteriorModel hand(blocks, priors);
-    hand.add_term(std::make_unique<VelocityTerm>(data, hand.layout()));
+    hand.add_term(std::make_unique<WhiteNoiseVelocityTerm>(data, hand.layout()));
     const PosteriorModel made = make_posterior(data, config, priors, TransitData{});
 
     const std::vector<std::vector<double>> points = {

@@ -4,6 +4,8 @@
 #include <doctest/doctest.h>
 
 #include <filesystem>
+#include <map>
+#include <set>
 #include <nlohmann/json.hpp>
 #include <string>
 
@@ -97,6 +99,89 @@ live_points = 100
   CHECK(pr.sampler.seed == 9);
   CHECK(pr.evidence.live_points == 100);
   CHECK(pr.text == text);
+}
+
+TEST_CASE("the reading keys of [[velocities]] and [[transits]] are read, with their defaults") {
+  const std::string text = R"([[velocities]]
+file = "a.dat"
+time_offset = 2457000
+repeats = "average"
+indicators = ["halpha", "fwhm"]
+columns = ["time", "velocity", "uncertainty", "halpha", "halpha_err", "fwhm"]
+[[velocities]]
+file = "b.csv"
+[[transits]]
+file = "t.csv"
+time_offset = 2400000.5
+[[transits]]
+file = "u.csv"
+)";
+  const auto pr = apsides::parse_project(text, "p.toml", "");
+  REQUIRE(pr.velocities.size() == 2);
+  const auto& a = pr.velocities[0].options;
+  REQUIRE(a.time_offset_days.has_value());
+  CHECK(*a.time_offset_days == 2457000.0);
+  CHECK(a.repeats == apsides::RepeatPolicy::kAverage);
+  REQUIRE(a.indicators.has_value());
+  CHECK(*a.indicators == std::vector<std::string>{"halpha", "fwhm"});
+  CHECK(a.columns.size() == 6);
+  CHECK(a.declared_at == "p.toml:2");
+  const auto& b = pr.velocities[1].options;
+  CHECK_FALSE(b.time_offset_days.has_value());
+  CHECK(b.repeats == apsides::RepeatPolicy::kKeep);
+  CHECK_FALSE(b.indicators.has_value());
+  CHECK(b.columns.empty());
+  REQUIRE(pr.transits.size() == 2);
+  CHECK(*pr.transits[0].time_offset_days == 2400000.5);
+  CHECK(pr.transits[1].planet.empty());  // no key: the file's planet column, else b
+  CHECK_FALSE(pr.transits[1].time_offset_days.has_value());
+}
+
+// Each real file of tests/data/real as a user would name it in a project: `file` plus at
+// most three lines. The checks after loading are the counts the README gives.
+TEST_CASE("every real data file reads with at most three project lines beyond `file`") {
+  struct Snippet {
+    std::string block, file;
+    std::vector<std::string> extra;  // the lines beyond `file`
+  };
+  const std::vector<Snippet> snippets = {
+      {"velocities", "51peg_rv_birkby2017.txt", {}},
+      {"velocities", "hd20868_rv_moutou2009.txt", {"velocity_unit = \"km/s\""}},
+      {"velocities", "hd217107_rv_cls_rosenthal2021.csv", {}},
+      {"velocities", "l9859_harps_cloutier2019.dat",
+       {"time_offset = 2457000",
+        "columns = [\"time\", \"velocity\", \"uncertainty\", \"halpha\", \"e_halpha\", \"hbeta\", \"e_hbeta\", "
+        "\"hgamma\", \"e_hgamma\", \"nad\", \"e_nad\", \"sindex\", \"e_sindex\", \"fwhm\", \"bis\"]"}},
+      {"transits", "wasp12b_transits_wong2022.txt", {}},
+      {"transits", "trappist1_transits_agol2021.csv", {}},
+  };
+  const std::map<std::string, std::size_t> rows = {
+      {"51peg_rv_birkby2017.txt", 639}, {"hd20868_rv_moutou2009.txt", 48}, {"hd217107_rv_cls_rosenthal2021.csv", 731},
+      {"l9859_harps_cloutier2019.dat", 165}, {"trappist1_transits_agol2021.csv", 447}};
+  for (const Snippet& sn : snippets) {
+    CAPTURE(sn.file);
+    CHECK(sn.extra.size() <= 3);
+    std::string text = "[[" + sn.block + "]]\nfile = \"" + t::real_data(sn.file) + "\"\n";
+    for (const auto& line : sn.extra) text += line + "\n";
+    if (sn.block == "transits") text += "[[velocities]]\nfile = \"" + t::real_data("51peg_rv_birkby2017.txt") + "\"\n";
+    const auto pr = apsides::parse_project(text, "p.toml", "");
+    if (sn.block == "velocities") {
+      const auto v = pr.load_velocities();
+      CHECK(v.size() == rows.at(sn.file));
+      for (const auto& w : v.warnings) CHECK(w.find("repeated (time, instrument)") != std::string::npos);
+    } else {
+      const auto tr = pr.load_transits();
+      if (rows.count(sn.file)) CHECK(tr.size() == rows.at(sn.file));
+      CHECK(tr.size() > 100);
+    }
+  }
+  // TRAPPIST-1 through the project keeps the file's planet letters.
+  const auto pr = apsides::parse_project("[[velocities]]\nfile = \"" + t::real_data("51peg_rv_birkby2017.txt") +
+                                             "\"\n[[transits]]\nfile = \"" + t::real_data("trappist1_transits_agol2021.csv") + "\"\n",
+                                         "p.toml", "");
+  const auto tr = pr.load_transits();
+  const std::set<std::string> letters(tr.planet.begin(), tr.planet.end());
+  CHECK(letters == std::set<std::string>{"b", "c", "d", "e", "f", "g", "h"});
 }
 
 TEST_CASE("data paths are relative to the project file, wherever the program runs") {

@@ -26,6 +26,34 @@
 // peak is refined by a least-squares fit of the sinusoid model above (nu free), whose
 // covariance gives the uncertainties. For near-resonant pairs the expected super-period
 // is P_super = 1 / |j / P_out - (j - 1) / P_in| (Lithwick, Xie & Wu 2012, ApJ 761, 122).
+//
+// Which model predicts (EphemerisModel::kAuto, the default). Each candidate model gets
+// BIC = chi2 + k ln N (k parameters: linear 2, quadratic 3, sinusoid 5; chi2 with the
+// stated errors, times sqrt(chi2/dof) of the linear fit under scale_errors). The sinusoid
+// is a candidate only when its O-C periodogram peak is significant (FAP < 0.01: the BIC
+// penalty alone does not pay for searching many frequencies). Starting from the linear
+// ephemeris, each candidate with more parameters (quadratic, then sinusoid) replaces the
+// current choice when it lowers BIC by more than `model_delta_bic` = 10 ("very strong",
+// Kass & Raftery 1995, JASA 90, 773). An N-body model of the transit times (later) is one
+// more candidate in that list: an EphemerisModel value, a TimingModelScore and a
+// predictor (see `timing_models` in src/ephemeris.cpp); nothing else changes.
+//
+// Predictive spread (what an observer scheduling a transit needs: the interval that holds
+// the next mid-transit time, not the error of the mean ephemeris). For the predicting
+// model, s is the excess timing scatter about it: 0 when the stated errors explain the
+// residuals (chi2/dof <= 1), else the value that makes chi2/dof = 1 when s^2 is added to
+// every sigma_i^2 (the model is refitted with those weights; for the sinusoid, nu too).
+// A predicted time is that refit's value, with
+//   sigma_pred(n)^2 = g(n)^T C g(n) + s^2,
+// g the gradient of the model's time at epoch n with respect to its parameters and C their
+// covariance in the refit (linearised; for the sinusoid the uncertainty of its frequency
+// makes sigma grow with the distance from the data). With a timing variation the linear
+// model's s is the variation's own scatter, so its predictions carry it too; the sinusoid,
+// when chosen, carries what it leaves unexplained. sigma_pred is for the mid-transit time;
+// a window of +/- 3 sigma_pred (plus half the transit duration each side) holds the
+// transit if the model's Gaussian description of the residuals holds. Far beyond the
+// observed epochs a sinusoid is an extrapolation: real timing variations are rarely one
+// pure sinusoid (a note says when predictions reach further than the span of the data).
 #pragma once
 
 #include <array>
@@ -38,10 +66,10 @@
 
 namespace apsides {
 
-// Which model predictions use.
-enum class EphemerisModel { kLinear, kQuadratic, kSinusoid };
+// Which model predictions use; kAuto picks by the BIC rule above. (kNbody will follow.)
+enum class EphemerisModel { kAuto, kLinear, kQuadratic, kSinusoid };
 std::string to_string(EphemerisModel model);
-// Accepts "linear", "quadratic", "sinusoid" (alias "ttv"); throws InputError otherwise.
+// Accepts "auto", "linear", "quadratic", "sinusoid" (alias "ttv"); throws InputError otherwise.
 EphemerisModel parse_ephemeris_model(const std::string& text, const std::string& where);
 
 struct EphemerisOptions {
@@ -72,7 +100,11 @@ struct EphemerisOptions {
   double from_bjd = std::numeric_limits<double>::quiet_NaN();
   double to_bjd = std::numeric_limits<double>::quiet_NaN();
   int max_predictions = 10000;      // cap on a date range
-  EphemerisModel prediction_model = EphemerisModel::kLinear;
+  // kAuto: the best supported model (rule above); a named model is used as asked (it
+  // still gets its own excess scatter s in sigma_pred).
+  EphemerisModel prediction_model = EphemerisModel::kAuto;
+  // BIC drop a model with more parameters needs to replace a simpler one (> 0).
+  double model_delta_bic = 10.0;
 
   std::string Validate() const;
 };
@@ -144,8 +176,30 @@ struct TransitPrediction {
   long long epoch = 0;
   double t_days = 0.0;        // relative to the reference epoch
   double t_mid_bjd = 0.0;     // full BJD_TDB (double: ~0.05 ms resolution)
-  double err_days = 0.0;      // 1-sigma from the chosen model's covariance
+  double err_days = 0.0;      // predictive 1-sigma: sqrt(g^T C g + s^2), see the top
   std::string utc;            // calendar UTC, "YYYY-MM-DD hh:mm:ss"
+};
+
+// One candidate timing model, scored for the choice of the predicting model.
+struct TimingModelScore {
+  EphemerisModel model = EphemerisModel::kLinear;
+  int n_parameters = 0;
+  bool candidate = false;     // fitted and eligible (the sinusoid: FAP < 0.01 as well)
+  std::string why_not;        // when not a candidate
+  double chi2 = std::numeric_limits<double>::quiet_NaN();  // errors as in the rule above
+  double bic = std::numeric_limits<double>::quiet_NaN();
+  double delta_bic_vs_linear = std::numeric_limits<double>::quiet_NaN();
+};
+
+// How the predictions were made.
+struct PredictionBasis {
+  EphemerisModel model = EphemerisModel::kLinear;
+  bool chosen_automatically = true;
+  std::string rule;           // the selection rule in words
+  std::string reason;         // why this model, with the numbers
+  double excess_scatter_days = 0.0;   // s (0: the stated errors explain the residuals)
+  double refit_chi2 = std::numeric_limits<double>::quiet_NaN();  // with sigma_i^2 + s^2
+  int refit_dof = 0;
 };
 
 struct EphemerisResult {
@@ -174,12 +228,22 @@ struct EphemerisResult {
   Estimate dp_dt_ms_per_year;         // milliseconds per year
   double delta_chi2 = 0.0;            // chi2(linear) - chi2(quadratic)
   double delta_bic = 0.0;             // BIC(quadratic) - BIC(linear); < 0 favours change
+  // The quadratic against the timing-variation model and against the best of linear and
+  // sinusoid (scores as in the rule above; NaN without a sinusoid fit). A period change
+  // is favoured only when the quadratic beats both: delta_bic < 0 and
+  // delta_bic_vs_best_other < 0. With a timing variation, a quadratic term mostly fits
+  // the variation, not a change of the period.
+  double delta_bic_vs_sinusoid = std::numeric_limits<double>::quiet_NaN();
+  double delta_bic_vs_best_other = std::numeric_limits<double>::quiet_NaN();
+  bool period_change_favoured = false;
 
   std::vector<OminusC> o_minus_c;
   TtvResult ttv;
+  std::vector<TimingModelScore> model_scores;  // linear, quadratic, sinusoid (in that order)
   std::vector<TransitPrediction> predictions;
-  EphemerisModel prediction_model = EphemerisModel::kLinear;
-  std::vector<std::string> notes;     // things the reader must know (scaling, outliers...)
+  EphemerisModel prediction_model = EphemerisModel::kLinear;  // the model used (never kAuto)
+  PredictionBasis prediction;
+  std::vector<std::string> notes;     // things the reader must know, each once
 
   std::string BriefReport() const;
   // Tables: ephemerides, O-C (minutes, or days with oc_in_minutes = false), TTV,

@@ -21,6 +21,7 @@
 #include <vector>
 
 #include "apsides/data.h"
+#include "apsides/gp_kernels.h"
 #include "apsides/parameter_blocks.h"
 
 namespace apsides {
@@ -74,6 +75,21 @@ enum class Trend { kNone = 0, kLinear = 1, kQuadratic = 2 };
 std::string to_string(Trend trend);
 Trend parse_trend(const std::string& text, const std::string& where);
 
+// The velocities' noise: white (stated errors and a jitter per instrument), or a
+// Gaussian process (stellar activity, gp.h) on top of that white noise ([noise] in the
+// project file).
+enum class NoiseKind { kWhite, kGaussianProcess };
+std::string to_string(NoiseKind kind);
+NoiseKind parse_noise_kind(const std::string& text, const std::string& where);  // "white" | "gp"
+struct NoiseSettings {
+  NoiseKind kind = NoiseKind::kWhite;
+  gp::KernelKind kernel = gp::KernelKind::kRotation;
+  // One GP amplitude per instrument (relative to the first instrument's): instruments
+  // see the same activity with different sensitivities (different wavelength ranges).
+  bool per_instrument_amplitude = false;
+  bool operator==(const NoiseSettings&) const = default;
+};
+
 struct ModelLayout {
   int n_planets = 0;
   int n_instruments = 1;
@@ -82,6 +98,7 @@ struct ModelLayout {
   // Planets (by letter index) whose transit times get a fitted extra scatter
   // ([[transits]] fit_jitter = true), whether or not the model has that planet.
   std::vector<int> transit_jitter_planets;
+  NoiseSettings noise;
 
   int trend_order() const { return static_cast<int>(trend); }
   std::size_t n_params() const;

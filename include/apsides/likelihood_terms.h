@@ -2,10 +2,10 @@
 //
 //   ln L(theta) = sum over terms of ln L_term(theta)
 //
-// Terms today: the velocities (Gaussian white noise: stated errors and a jitter per
-// instrument, instrument offsets, a trend), and the mid-transit times of each planet
-// that has them (T_n = T_conj + n P; an optional extra scatter). A term declares the
-// blocks it reads (parameter_blocks.h).
+// Terms: the velocities (instrument offsets, a trend, and white noise -- stated errors and
+// a jitter per instrument -- or a Gaussian process on top of it), and the mid-transit
+// times of each planet that has them (T_n = T_conj + n P; an optional extra scatter). A
+// term declares the blocks it reads (parameter_blocks.h).
 //
 // The signal is what the planets do to the observables: the star's velocity at given
 // times and each transiting planet's mid-transit times. The Keplerian signal is a sum of
@@ -16,11 +16,13 @@
 
 #include <cstddef>
 #include <memory>
+#include <random>
 #include <span>
 #include <string>
 #include <vector>
 
 #include "apsides/data.h"
+#include "apsides/gp.h"
 #include "apsides/keplerian_model.h"
 #include "apsides/parameter_blocks.h"
 
@@ -65,46 +67,116 @@ class LikelihoodTerm {
   virtual double log_likelihood_profiled(std::span<double> theta, const std::vector<bool>& free_linear) const;
 };
 
-// The velocities: a signal plus, per instrument, an offset and white noise of variance
-// stated error^2 + jitter^2, plus a trend (keplerian_model.h has the formulas).
-class VelocityTerm final : public LikelihoodTerm {
+// The velocities: a signal (the planets) plus, per instrument, an offset and a trend
+// (linear parameters), and a noise model. The part every noise model shares is here;
+// WhiteNoiseVelocityTerm and GpVelocityTerm say how the residuals are weighed.
+class VelocityTerm : public LikelihoodTerm {
  public:
   VelocityTerm(const VelocityData& data, const ParameterLayout& layout);
   VelocityTerm(const VelocityTerm&) = delete;
   VelocityTerm& operator=(const VelocityTerm&) = delete;
   std::string name() const override { return "velocities"; }
-  std::size_t n_points() const override { return model_.data().size(); }
+  std::size_t n_points() const override { return data_.size(); }
   std::vector<const ParameterBlock*> reads() const override;
-  double log_likelihood(std::span<const double> theta) const override;
-  // Offsets and trend coefficients by weighted linear least squares (weights
-  // 1 / (error^2 + jitter^2)), the fixed ones kept.
-  double log_likelihood_profiled(std::span<double> theta, const std::vector<bool>& free_linear) const override;
-  // For nested sampling: the listed instruments' offsets integrated out analytically
-  // (KeplerianModel::log_likelihood_offsets_integrated).
-  double log_likelihood_offsets_integrated(std::span<const double> theta,
-                                           std::span<const KeplerianModel::IntegratedOffset> integrated,
-                                           std::vector<KeplerianModel::OffsetConditional>* conditionals) const;
-  const KeplerianModel& model() const { return model_; }
-  const VelocityData& data() const { return model_.data(); }
+  const VelocityData& data() const { return data_; }
 
- private:
+  // For nested sampling: the listed instruments' offsets integrated out analytically under
+  // their uniform priors; with `conditionals`, also each offset's conditional posterior
+  // given the rest (the draws of complete_offsets use them).
+  virtual double log_likelihood_offsets_integrated(std::span<const double> theta,
+                                                   std::span<const KeplerianModel::IntegratedOffset> integrated,
+                                                   std::vector<KeplerianModel::OffsetConditional>* conditionals) const = 0;
+  // Writes the integrated offsets into theta: drawn from their conditional posterior with
+  // `rng`, else their most probable values.
+  virtual void complete_offsets(std::span<double> theta, std::span<const KeplerianModel::IntegratedOffset> integrated,
+                                std::mt19937_64* rng) const = 0;
+  // Observed minus the deterministic model (planets, offsets, trend) at the data points,
+  // less the noise model's own prediction when `remove_correlated_noise` (a GP's
+  // conditional mean): what a periodogram of residuals should see. `sigma`: the white
+  // part, sqrt(error^2 + jitter^2).
+  virtual void residuals(std::span<const double> theta, bool remove_correlated_noise, std::vector<double>& r,
+                         std::vector<double>& sigma) const = 0;
+
+ protected:
   struct LinearColumn {
     std::size_t index;  // theta index
     int instrument;     // the offset of this instrument, or -1 for a trend coefficient
     int power;          // the trend's power (1, 2)
   };
+  // The signal at the data points (sum of Keplerians); false when theta cannot be evaluated.
+  bool signal_at_data(std::span<const double> theta, std::vector<double>& out) const;
   double linear_value(std::span<const double> theta, std::size_t i) const;
   double linear_column(const LinearColumn& column, std::size_t i) const;
-  bool solve_linear(const std::vector<const LinearColumn*>& free, const std::vector<double>& signal,
-                    const std::vector<double>& w, std::span<double> theta) const;
+  // Stated variance + jitter^2 per point; false when a jitter is negative or not finite.
+  bool white_variances(std::span<const double> theta, std::vector<double>& out) const;
+  std::vector<const LinearColumn*> free_columns(const std::vector<bool>& free_linear) const;
 
-  KeplerianModel model_;
-  const ParameterLayout* layout_;  // the posterior's (for reads())
-  // Blocks of model_'s own layout, resolved once.
+  VelocityData data_;
+  const ParameterLayout* layout_;  // the posterior's blocks (stable: the posterior owns them)
   std::vector<const PlanetBlock*> planets_;
   std::vector<const InstrumentBlock*> instruments_;
   const TrendBlock* trend_;
   std::vector<LinearColumn> linear_;  // offsets and trend coefficients, in theta order
+};
+
+// White noise: variance stated error^2 + jitter^2 (keplerian_model.h has the formulas and
+// the fused SIMD kernel this term evaluates).
+class WhiteNoiseVelocityTerm final : public VelocityTerm {
+ public:
+  WhiteNoiseVelocityTerm(const VelocityData& data, const ParameterLayout& layout);
+  double log_likelihood(std::span<const double> theta) const override;
+  // Offsets and trend coefficients by weighted linear least squares (weights
+  // 1 / (error^2 + jitter^2)), the fixed ones kept.
+  double log_likelihood_profiled(std::span<double> theta, const std::vector<bool>& free_linear) const override;
+  double log_likelihood_offsets_integrated(std::span<const double> theta,
+                                           std::span<const KeplerianModel::IntegratedOffset> integrated,
+                                           std::vector<KeplerianModel::OffsetConditional>* conditionals) const override;
+  void complete_offsets(std::span<double> theta, std::span<const KeplerianModel::IntegratedOffset> integrated,
+                        std::mt19937_64* rng) const override;
+  void residuals(std::span<const double> theta, bool remove_correlated_noise, std::vector<double>& r,
+                 std::vector<double>& sigma) const override;
+  const KeplerianModel& model() const { return model_; }
+
+ private:
+  bool solve_linear(const std::vector<const LinearColumn*>& free, const std::vector<double>& signal,
+                    const std::vector<double>& w, std::span<double> theta) const;
+  KeplerianModel model_;
+};
+
+// Correlated noise: a Gaussian process (gp.h) with the GpBlock's kernel, on top of the
+// white noise. Semiseparable kernels in O(N J^2), the quasi-periodic kernel densely
+// (O(N^3): N <~ 1000). The velocities must be in time order (VelocityData is).
+class GpVelocityTerm final : public VelocityTerm {
+ public:
+  GpVelocityTerm(const VelocityData& data, const ParameterLayout& layout);
+  std::vector<const ParameterBlock*> reads() const override;
+  double log_likelihood(std::span<const double> theta) const override;
+  // Offsets and trend by generalised least squares under the GP covariance.
+  double log_likelihood_profiled(std::span<double> theta, const std::vector<bool>& free_linear) const override;
+  // Gaussian integral over the offsets under the GP: ln L(beta_hat) + M/2 ln(2 pi)
+  // - 1/2 ln|A^T K^-1 A| - sum ln(width), the prior box's truncation taken per offset
+  // from its marginal (the default box is tens of standard deviations wide).
+  double log_likelihood_offsets_integrated(std::span<const double> theta,
+                                           std::span<const KeplerianModel::IntegratedOffset> integrated,
+                                           std::vector<KeplerianModel::OffsetConditional>* conditionals) const override;
+  void complete_offsets(std::span<double> theta, std::span<const KeplerianModel::IntegratedOffset> integrated,
+                        std::mt19937_64* rng) const override;
+  void residuals(std::span<const double> theta, bool remove_correlated_noise, std::vector<double>& r,
+                 std::vector<double>& sigma) const override;
+  // The activity signal's conditional mean and standard deviation at times t (days after
+  // the reference epoch), for instrument `instrument`'s amplitude, given the residuals of
+  // the deterministic model at theta.
+  gp::Prediction predict(std::span<const double> theta, std::span<const double> t_days, int instrument = 0,
+                         bool with_sd = true) const;
+
+ private:
+  struct Workspace;
+  static Workspace& workspace();  // one per thread
+  // Factors K at theta into the thread's workspace; "" or a message.
+  std::string factor(std::span<const double> theta, Workspace& ws) const;
+  double integrated_offsets(std::span<const double> theta, std::span<const KeplerianModel::IntegratedOffset> integrated,
+                            std::vector<double>* mean, std::vector<double>* covariance) const;
+  const GpBlock* gp_;
 };
 
 // The mid-transit times of one planet: T_n = T_conj + n P from the planet's orbit block

@@ -35,6 +35,18 @@
 //                    times (timing noise, underestimated errors) in quadrature.
 //   trend.c1_ms_per_d  uniform(+-10 x range / baseline);
 //   trend.c2_ms_per_d2 uniform(+-10 x range / baseline^2).
+//   gp.*             ([noise] kind = "gp", gp_kernels.h for the parameters' meaning)
+//                    gp.amplitude_ms log-uniform(0.01 x median error, 10 x max(range/2, median error));
+//                    gp.rotation_period_d (and the quasi-periodic gp.period_d)
+//                    log-uniform(1 d, baseline / 2), or log-uniform(P / 1.5, 1.5 P) around
+//                    the period P the activity indicators show (stated in the report);
+//                    gp.period_d of the SHO, gp.timescale_d, gp.evolution_timescale_d
+//                    log-uniform(1 d, baseline); gp.quality log-uniform(0.1, 50) (SHO:
+//                    (0.1, 100)); gp.quality_difference log-uniform(0.01, 50); gp.mix
+//                    uniform(0, 1); gp.smoothness log-uniform(0.1, 10); gp.epsilon_per_d
+//                    fixed at 0.01; gp.scale_<instrument> log-uniform(0.1, 10). Common
+//                    practice: wide log-uniform priors on scales, proper so that the
+//                    evidence is defined.
 //
 // Overrides: [priors] keys are the names of ModelLayout::names() ("b.period_d",
 // "north.jitter_ms", "trend.c1_ms_per_d") plus "eccentricity" (every planet) and

@@ -9,6 +9,7 @@
 //   transit_jitter  <p>.transit_jitter_d                                    (extra transit-time scatter)
 //   transit_ephemeris <p>.period_d  <p>.t_conj_d   (a transiting body whose velocity signal a model
 //                                                   leaves out: nested sampling's smaller models)
+//   gaussian_process gp.<kernel parameter> ... [gp.scale_<instrument> ...]   (activity noise)
 //
 // A block knows its parameters' names and units, which of them enter the velocity model
 // linearly (profiled by the fit, integrable by nested sampling), its default priors and
@@ -28,6 +29,7 @@
 #include <string>
 #include <vector>
 
+#include "apsides/gp_kernels.h"
 #include "apsides/prior.h"
 
 namespace apsides {
@@ -36,7 +38,7 @@ struct ModelLayout;
 struct Planet;
 struct PriorContext;  // defined in src/model (data statistics the defaults use)
 
-enum class BlockKind { kPlanet, kInstrument, kTrend, kTransitJitter, kTransitEphemeris };
+enum class BlockKind { kPlanet, kInstrument, kTrend, kTransitJitter, kTransitEphemeris, kGaussianProcess };
 std::string to_string(BlockKind kind);
 
 // One entry of theta.
@@ -260,6 +262,35 @@ class TransitEphemerisBlock final : public OrbitBlock {
                  std::span<double> theta) const override;
 };
 
+// The hyperparameters of the Gaussian-process noise (gp_kernels.h: the kernel's parameter
+// list, named gp.<name>, e.g. gp.rotation_period_d), and with per-instrument amplitudes
+// one amplitude ratio per instrument after the first (gp.scale_<instrument>; the first
+// instrument's is 1). Default priors in model_priors.h.
+class GpBlock final : public ParameterBlock {
+ public:
+  GpBlock(gp::KernelKind kernel, const std::vector<std::string>& instrument_names, bool per_instrument_amplitude);
+  std::unique_ptr<ParameterBlock> clone() const override { return std::make_unique<GpBlock>(*this); }
+  gp::KernelKind kernel() const { return kernel_; }
+  int n_kernel_parameters() const { return n_kernel_; }
+  // The kernel's parameters (gp_kernels.h to_vector order) at theta.
+  std::span<const double> kernel_values(std::span<const double> theta) const {
+    return theta.subspan(first(), static_cast<std::size_t>(n_kernel_));
+  }
+  // GP amplitude of instrument i relative to the first (1 without per-instrument amplitudes).
+  double scale(std::span<const double> theta, int instrument) const;
+  bool per_instrument() const { return !scale_slot_.empty(); }
+
+  void set_default_priors(const PriorContext& context, ModelPriors& priors) const override;
+  void check_override(int slot, const Prior& prior, const std::string& where) const override;
+  double fit_start(int slot, const Prior& prior) const override;
+  double fit_step(int slot, std::span<const double> theta, double baseline_days, double bound_width) const override;
+
+ private:
+  gp::KernelKind kernel_;
+  int n_kernel_ = 0;
+  std::vector<int> scale_slot_;  // by instrument index; -1 for the first (scale 1)
+};
+
 // The ordered blocks of one model.
 class ParameterLayout {
  public:
@@ -295,6 +326,7 @@ class ParameterLayout {
   const TrendBlock* trend() const&;
   const TransitJitterBlock* transit_jitter(const std::string& planet_label) const&;
   const OrbitBlock* orbit(const std::string& label) const&;
+  const GpBlock* gaussian_process() const&;
   const PlanetBlock& planet(int position) const&;  // position among the planet blocks
   std::vector<const PlanetBlock*> planets() && = delete;
   std::vector<const InstrumentBlock*> instruments() && = delete;
@@ -302,6 +334,7 @@ class ParameterLayout {
   const TrendBlock* trend() && = delete;
   const TransitJitterBlock* transit_jitter(const std::string&) && = delete;
   const OrbitBlock* orbit(const std::string&) && = delete;
+  const GpBlock* gaussian_process() && = delete;
   const PlanetBlock& planet(int) && = delete;
 
   // Sum of the blocks' log priors plus the period ordering of the planets whose letter is

@@ -8,8 +8,26 @@
 //   [star]        name [""], mass_msun [unset], mass_err_msun [0], radius_rsun [unset],
 //                 radius_err_rsun [0]
 //   [[velocities]] file (required, relative to the project file), instrument [from file],
-//                 velocity_unit ["m/s"]
-//   [[transits]]  file (required), planet ["b"], fit_jitter [false]
+//                 velocity_unit ["m/s"],
+//                 time_offset [none: times must be full BJD] days added to every time of
+//                   the file, for reduced times (2457000 for BJD - 2457000, 2400000.5 for
+//                   MJD; 0 keeps times as given); the rule is in data.h, "Reduced times",
+//                 repeats ["keep" | "average" | "error"] for a repeated (time, instrument)
+//                   pair (data.h RepeatPolicy),
+//                 indicators [every extra column] names of the extra columns kept as
+//                   activity indicators (a name that is no column, or a column empty on
+//                   every row, is an error),
+//                 columns [from the header row] names of every column, in order, for a
+//                   file without a header (first three: time, velocity, uncertainty)
+//   [[transits]]  file (required), planet [the file's planet column, else "b"; given, it
+//                 labels every row], fit_jitter [false], time_offset [none]
+//
+// The real files in tests/data/real read with at most three lines beyond `file`, e.g. a
+// CDS fixed-width table with reduced times and activity indicators:
+//   [[velocities]]
+//   file = "l9859_harps_cloutier2019.dat"
+//   time_offset = 2457000
+//   columns = ["time", "velocity", "uncertainty", "halpha", "e_halpha", ...]
 //   [search]      max_planets [3], min_period_d [auto], max_period_d [auto],
 //                 oversample [10], fap_threshold [0.001]
 //   [model]       planets [from search], trend ["none" | "linear" | "quadratic"],
@@ -48,14 +66,15 @@ struct StarSpec {
 
 struct VelocitySource {
   std::string file;  // resolved path
-  VelocityFileOptions options;
+  VelocityFileOptions options;  // instrument, unit, time_offset, repeats, indicators, columns
   std::string origin;  // "project.toml:LINE" of the block, for messages
 };
 
 struct TransitSource {
   std::string file;  // resolved path
-  std::string planet = "b";
+  std::string planet;  // "" (no `planet` key): the file's planet column, else "b"
   bool fit_jitter = false;
+  std::optional<double> time_offset_days;  // days added to every time (data.h, "Reduced times")
   std::string origin;  // "project.toml:LINE" of the block, for messages
 };
 
@@ -75,6 +94,7 @@ struct ModelSettings {
   EccentricityPriorKind eccentricity = EccentricityPriorKind::kUniform;
   // Exclude orbits whose periastron lies inside the star (needs [star] mass_msun).
   bool periastron_outside_star = true;
+  NoiseSettings noise;  // [noise] kind, kernel, per_instrument_amplitude
 };
 
 // One [priors] entry, validated but not yet bound to a layout.

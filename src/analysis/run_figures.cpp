@@ -126,8 +126,9 @@ void corner_figures(const ResultsFile& file, const ParameterLayout& L, const std
 void trace_figures(const ResultsFile& file, const std::vector<std::string>& names, std::size_t dim,
                    const std::string& dir, const FigureOptions& options, std::vector<std::string>& written) {
   const long steps = file.chain_steps();
-  const long stride = std::max<long>(1, steps / 1500);
-  const std::vector<double> rows = file.read_chain_rows(1, steps, stride);
+  const ResultsFile::StepSelection sel = file.select_steps(0, steps, 1500 * static_cast<std::size_t>(file.chain_walkers()));
+  const long stride = sel.stride;
+  const std::vector<double> rows = file.read_chain_rows(sel.first, sel.last, stride);
   const std::size_t nw = static_cast<std::size_t>(file.chain_walkers());
   const std::size_t n_rows = rows.size() / (nw * dim);
   const long burn = file.has_attribute("/chains", "burn_in_steps") ? static_cast<long>(file.int_attribute("/chains", "burn_in_steps")) : steps / 2;

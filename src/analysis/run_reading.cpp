@@ -49,11 +49,9 @@ KeptSamples read_kept(const ResultsFile& f, std::size_t max_samples) {
   KeptSamples k;
   const long steps = f.chain_steps();
   const long burn = f.has_attribute("/chains", "burn_in_steps") ? static_cast<long>(f.int_attribute("/chains", "burn_in_steps")) : steps / 2;
-  const int walkers = f.chain_walkers();
   k.dim = f.chain_dim();
-  const long kept_steps = std::max<long>(1, steps - burn);
-  const long stride = std::max<long>(1, static_cast<long>(static_cast<std::size_t>(kept_steps) * static_cast<std::size_t>(walkers) / max_samples));
-  k.theta = f.read_chain_rows(burn + 1, steps, stride);
+  const ResultsFile::StepSelection sel = f.select_steps(burn, steps, max_samples);  // stored steps after burn-in
+  k.theta = sel.rows ? f.read_chain_rows(sel.first, sel.last, sel.stride) : std::vector<double>{};
   k.rows = k.theta.size() / k.dim;
   k.median.resize(k.dim);
   std::vector<double> col(k.rows);

@@ -24,14 +24,16 @@ struct EphemerisArgs {
   bool drop_outliers = false;
   double companion_period = 0.0;
   long long epoch = 0;
-  std::string model = "linear";
+  std::string model = "auto";
   bool no_ttv = false;
   bool minutes = false;
   bool days = false;
+  double time_offset = 0.0;
   CommonOptions common;
 };
 
 nlohmann::json estimate_json(const Estimate& e) { return {{"value", e.value}, {"err", e.err}}; }
+nlohmann::json number_or_null(double x) { return std::isfinite(x) ? nlohmann::json(x) : nlohmann::json(nullptr); }
 
 nlohmann::json to_json(const EphemerisResult& r, const std::string& path, const std::string& planet,
                        const std::vector<std::string>& ignored) {
@@ -83,7 +85,10 @@ nlohmann::json to_json(const EphemerisResult& r, const std::string& path, const 
                       {"chi2", r.quadratic.chi2},
                       {"dof", r.quadratic.dof},
                       {"delta_chi2", r.delta_chi2},
-                      {"delta_bic", r.delta_bic}};
+                      {"delta_bic", r.delta_bic},
+                      {"delta_bic_vs_sinusoid", number_or_null(r.delta_bic_vs_sinusoid)},
+                      {"delta_bic_vs_best_other", number_or_null(r.delta_bic_vs_best_other)},
+                      {"period_change_favoured", r.period_change_favoured}};
   } else {
     j["quadratic"] = nullptr;
   }
@@ -110,6 +115,27 @@ nlohmann::json to_json(const EphemerisResult& r, const std::string& path, const 
   tj["resonances"] = res;
   j["ttv"] = tj;
   j["prediction_model"] = to_string(r.prediction_model);
+  const auto& b = r.prediction;
+  j["prediction"] = {{"model", to_string(b.model)},
+                     {"chosen_automatically", b.chosen_automatically},
+                     {"rule", b.rule},
+                     {"reason", b.reason},
+                     {"excess_scatter_d", b.excess_scatter_days},
+                     {"excess_scatter_min", b.excess_scatter_days * 1440.0},
+                     {"refit_chi2", number_or_null(b.refit_chi2)},
+                     {"refit_dof", b.refit_dof},
+                     {"err_d_is", "predictive 1-sigma: the model's parameter covariance propagated to the epoch, "
+                                  "plus the excess scatter in quadrature"}};
+  json scores = json::array();
+  for (const auto& m : r.model_scores)
+    scores.push_back({{"model", to_string(m.model)},
+                      {"n_parameters", m.n_parameters},
+                      {"candidate", m.candidate},
+                      {"why_not", m.why_not},
+                      {"chi2", number_or_null(m.chi2)},
+                      {"bic", number_or_null(m.bic)},
+                      {"delta_bic_vs_linear", number_or_null(m.delta_bic_vs_linear)}});
+  j["model_scores"] = scores;
   json pr = json::array();
   for (const auto& p : r.predictions)
     pr.push_back({{"epoch", p.epoch},
@@ -152,15 +178,20 @@ Command register_ephemeris(CLI::App& app) {
   cmd->add_option("--companion-period", args->companion_period,
                   "Period (d) of another planet: print the expected near-resonant TTV super-period")
       ->check(CLI::PositiveNumber);
-  cmd->add_option("--model", args->model, "Ephemeris for the predictions: linear, quadratic or sinusoid [linear]")
-      ->check(CLI::IsMember({"linear", "quadratic", "sinusoid", "ttv"}));
+  cmd->add_option("--model", args->model,
+                  "Ephemeris for the predictions: auto (the best supported by BIC), linear, quadratic or "
+                  "sinusoid [auto]")
+      ->check(CLI::IsMember({"auto", "linear", "quadratic", "sinusoid", "ttv"}));
   cmd->add_flag("--no-ttv", args->no_ttv, "Skip the timing-variation search");
   auto* minutes = cmd->add_flag("--minutes", args->minutes, "O-C and errors in minutes (default)");
   cmd->add_flag("--days", args->days, "O-C and errors in days")->excludes(minutes);
+  const CLI::Option* time_offset = add_time_offset_option(cmd, args->time_offset);
   add_common_options(cmd, args->common);
 
-  return {cmd, [args]() -> int {
-            TransitData all = read_transit_file(args->times);
+  return {cmd, [args, time_offset]() -> int {
+            TransitFileOptions file_options;
+            file_options.time_offset_days = time_offset_value(time_offset, args->time_offset);
+            TransitData all = read_transit_file(args->times, file_options);
             std::set<std::string> labels(all.planet.begin(), all.planet.end());
             std::string planet = args->planet;
             TransitData data;

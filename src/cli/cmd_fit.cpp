@@ -27,6 +27,7 @@ struct FitArgs {
   std::string trend;
   std::string residuals_path;
   double fap_threshold = 0.0;
+  double time_offset = 0.0;
   CommonOptions common;
 };
 
@@ -153,19 +154,21 @@ Command register_fit(CLI::App& app) {
   cmd->add_option("--trend", args->trend, "Long-term trend: none, linear, quadratic")
       ->check(CLI::IsMember({"none", "linear", "quadratic"}));
   cmd->add_option("--residuals", args->residuals_path, "Write time, residual, uncertainty, instrument to FILE");
+  const CLI::Option* time_offset = add_time_offset_option(cmd, args->time_offset);
   add_common_options(cmd, args->common);
-  return {cmd, [args]() -> int {
+  return {cmd, [args, time_offset]() -> int {
             SearchProblem sp;
             std::optional<double> mass;
+            const std::optional<double> offset = time_offset_value(time_offset, args->time_offset);
             if (args->files.size() == 1 && is_project_file(args->files[0])) {
-              const Project pr = load_project(args->files[0]);
+              const Project pr = load_project_with_time_offset(args->files[0], offset);
               const VelocityData data = pr.load_velocities();
               print_warnings(data);
               sp = search_problem(pr, data, pr.transits.empty() ? TransitData{} : pr.load_transits());
               if (pr.star.mass_msun) mass = *pr.star.mass_msun;
               if (args->planets < 0 && !args->search && pr.model.planets) args->planets = *pr.model.planets;
             } else {
-              sp.data = load_velocity_arguments(args->files, args->instrument, args->velocity_unit);
+              sp.data = load_velocity_arguments(args->files, args->instrument, args->velocity_unit, offset);
             }
             if (args->star_mass > 0.0) {
               mass = args->star_mass;

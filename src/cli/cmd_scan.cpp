@@ -21,6 +21,7 @@ struct ScanArgs {
   std::string normalization = "standard";
   std::string method = "auto";
   std::string csv_path;
+  double time_offset = 0.0;
   PeriodogramOptions options;
   CommonOptions common;
 };
@@ -72,14 +73,16 @@ Command register_scan(CLI::App& app) {
   cmd->add_option("--peaks", args->options.n_peaks, "Number of peaks to report [10]")->check(CLI::Range(1, 1000));
   cmd->add_option("--threads", args->options.threads, "Threads [0 = all cores]")->check(CLI::Range(0, 1024));
   cmd->add_option("--csv", args->csv_path, "Write the whole periodogram (frequency, period, power, window) to FILE");
+  const CLI::Option* time_offset = add_time_offset_option(cmd, args->time_offset);
   add_common_options(cmd, args->common);
-  return {cmd, [args]() -> int {
+  return {cmd, [args, time_offset]() -> int {
             VelocityData data;
+            const std::optional<double> offset = time_offset_value(time_offset, args->time_offset);
             if (args->files.size() == 1 && is_project_file(args->files[0])) {
-              data = load_project(args->files[0]).load_velocities();
+              data = load_project_with_time_offset(args->files[0], offset).load_velocities();
               print_warnings(data);
             } else {
-              data = load_velocity_arguments(args->files, args->instrument, args->velocity_unit);
+              data = load_velocity_arguments(args->files, args->instrument, args->velocity_unit, offset);
             }
             PeriodogramOptions opt = args->options;
             opt.normalization = parse_normalization(args->normalization, "--normalization");

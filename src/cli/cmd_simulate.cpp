@@ -22,12 +22,17 @@ std::string project_text(const Scenario& sc, const SimulatedData& sim) {
   s += fmt::format("[star]\nname = \"{}\"\nmass_msun = {}\n", sc.star_name, sc.mass_msun);
   if (sc.mass_err_msun > 0) s += fmt::format("mass_err_msun = {}\n", sc.mass_err_msun);
   s += fmt::format("radius_rsun = {}\n", sc.radius_rsun);
+  // Times that are not full BJD (a scenario starting at day 0) are declared as they are.
+  bool full_bjd = true;
+  for (const auto& r : sim.velocities) full_bjd = full_bjd && r.time_bjd >= kFullBjdMin && r.time_bjd < kFullBjdMax;
+  for (const auto& r : sim.transits) full_bjd = full_bjd && r.time_bjd >= kFullBjdMin && r.time_bjd < kFullBjdMax;
+  const std::string as_given = full_bjd ? "" : "time_offset = 0\n";
   for (const auto& i : sc.instruments) {
-    s += fmt::format("\n[[velocities]]\nfile = \"velocities_{}.csv\"\ninstrument = \"{}\"\n", i.name, i.name);
+    s += fmt::format("\n[[velocities]]\nfile = \"velocities_{}.csv\"\ninstrument = \"{}\"\n{}", i.name, i.name, as_given);
     if (i.unit == VelocityUnit::kKilometersPerSecond) s += "velocity_unit = \"km/s\"\n";
   }
   if (!sim.transits.empty()) {
-    s += fmt::format("\n[[transits]]\nfile = \"transits.csv\"\nplanet = \"{}\"\n", sc.transits.planet);
+    s += fmt::format("\n[[transits]]\nfile = \"transits.csv\"\nplanet = \"{}\"\n{}", sc.transits.planet, as_given);
   }
   s += "\n[search]\nmax_planets = 3\n";
   return s;

@@ -25,17 +25,46 @@ void print_warnings(const VelocityData& data) {
 }
 
 VelocityData load_velocity_arguments(const std::vector<std::string>& files, const std::string& instrument,
-                                     const std::string& velocity_unit) {
+                                     const std::string& velocity_unit, std::optional<double> time_offset) {
   std::vector<VelocityFileOptions> fo(files.size());
   for (auto& o : fo) {
     o.instrument = instrument;
     o.unit = parse_velocity_unit(velocity_unit, "--velocity-unit");
+    o.time_offset_days = time_offset;
+    if (time_offset) o.declared_at = "--time-offset";
   }
   for (const auto& f : files)
     if (is_project_file(f)) throw InputError(fmt::format("{}: a project file must be the only FILE", f));
   VelocityData data = load_velocities(files, fo);
   print_warnings(data);
   return data;
+}
+
+CLI::Option* add_time_offset_option(CLI::App* cmd, double& days) {
+  return cmd->add_option("--time-offset", days,
+                         "Days added to every time of the data files, for reduced times (2457000 for "
+                         "BJD - 2457000, 2400000.5 for MJD; 0 keeps times as given)");
+}
+
+std::optional<double> time_offset_value(const CLI::Option* option, double days) {
+  if (option->count() == 0) return std::nullopt;
+  check_time_offset(days, "--time-offset");
+  return days;
+}
+
+Project load_project_with_time_offset(const std::string& path, std::optional<double> time_offset) {
+  Project project = load_project(path);
+  if (!time_offset) return project;
+  for (VelocitySource& v : project.velocities) {
+    auto& declared = v.options.time_offset_days;
+    if (declared && *declared != *time_offset) {
+      throw InputError(fmt::format("--time-offset {}: the [[velocities]] block at {} declares time_offset = {} for {}; "
+                                   "the offset is given twice (keep one)",
+                                   *time_offset, v.origin, *declared, v.file));
+    }
+    declared = time_offset;
+  }
+  return project;
 }
 
 void write_file_atomic(const std::string& path, const std::string& content) {

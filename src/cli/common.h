@@ -4,11 +4,13 @@
 #include <CLI/CLI.hpp>
 #include <chrono>
 #include <functional>
+#include <optional>
 #include <nlohmann/json.hpp>
 #include <string>
 #include <vector>
 
 #include "apsides/data.h"
+#include "apsides/project.h"
 
 namespace apsides::cli {
 
@@ -40,10 +42,21 @@ Command register_survey(CLI::App& app);
 // True when a FILE argument is a project file (ends in .toml).
 bool is_project_file(const std::string& path);
 // Velocities named on the command line: several data files (each read with the given
-// --instrument label and --velocity-unit), never mixed with a project file. Prints the
-// data's warnings (e.g. a unit that looks wrong) to stderr.
+// --instrument label, --velocity-unit and --time-offset), never mixed with a project file.
+// Prints the data's warnings (e.g. a unit that looks wrong) to stderr.
 VelocityData load_velocity_arguments(const std::vector<std::string>& files, const std::string& instrument,
-                                     const std::string& velocity_unit);
+                                     const std::string& velocity_unit,
+                                     std::optional<double> time_offset = std::nullopt);
+
+// --time-offset DAYS: added to every time of the data files (reduced BJD; data.h "Reduced
+// times"). Returns the option so the action can ask whether it was given.
+CLI::Option* add_time_offset_option(CLI::App* cmd, double& days);
+// The option's value when given, checked (0 <= days < 2500000).
+std::optional<double> time_offset_value(const CLI::Option* option, double days);
+// Loads a project for a command that also takes --time-offset: every [[velocities]] block
+// without time_offset takes the option's value; a block declaring a different one is an
+// InputError (the offset given twice).
+Project load_project_with_time_offset(const std::string& path, std::optional<double> time_offset);
 // Prints data warnings to stderr, one line each.
 void print_warnings(const VelocityData& data);
 

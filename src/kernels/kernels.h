@@ -1,6 +1,7 @@
-// Internal: the numerical kernels, compiled with the flags of APSIDES_KERNEL_FLAGS
-// (fast-math, vector math library) and nothing else. Each has a plain scalar
-// reference elsewhere and a test that holds them together.
+// Internal: the numerical kernels. Each is compiled once per SIMD instruction set with
+// Google Highway and dispatched at run time to the best one the CPU runs (or the one
+// APSIDES_SIMD_TARGET names; see simd.h). Each has a plain scalar reference elsewhere and
+// a test that holds them together under every target.
 #pragma once
 
 #include <cstddef>
@@ -12,7 +13,8 @@ namespace apsides::kernels {
 void kepler_sincos(const double* M, std::size_t n, double e, double* sin_E, double* cos_E);
 // E in [0, 2 pi) for per-point (M, e). E must not overlap M or e.
 void kepler_batch(const double* M, const double* e, std::size_t n, double* E);
-// s[i] = sin x[i], c[i] = cos x[i] through the vector math library: the cost of one
+// s[i] = sin x[i], c[i] = cos x[i] through a vector math library (SLEEF's sincos on x86,
+// Highway's Sin and Cos elsewhere; |x| < 39000 for the latter): the cost of one
 // vectorised sin+cos pair, the yardstick of the Kepler benchmark.
 void sincos_batch(const double* x, std::size_t n, double* s, double* c);
 

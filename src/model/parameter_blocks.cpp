@@ -26,6 +26,7 @@ std::string to_string(BlockKind kind) {
     case BlockKind::kTrend: return "trend";
     case BlockKind::kTransitJitter: return "transit_jitter";
     case BlockKind::kTransitEphemeris: return "transit_ephemeris";
+    case BlockKind::kGaussianProcess: return "gaussian_process";
   }
   return "unknown";
 }
@@ -136,6 +137,13 @@ ParameterLayout ParameterLayout::from(const ModelLayout& layout, const std::vect
   }
   if (layout.trend_order() > 0) out.add(std::make_unique<TrendBlock>(layout.trend_order()));
   for (int j : layout.transit_jitter_planets) out.add(std::make_unique<TransitJitterBlock>(planet_label(j)));
+  if (layout.noise.kind == NoiseKind::kGaussianProcess) {
+    std::vector<std::string> names;
+    for (int i = 0; i < layout.n_instruments; ++i)
+      names.push_back(static_cast<std::size_t>(i) < instrument_names.size() ? instrument_names[static_cast<std::size_t>(i)]
+                                                                          : fmt::format("instrument{}", i + 1));
+    out.add(std::make_unique<GpBlock>(layout.noise.kernel, names, layout.noise.per_instrument_amplitude));
+  }
   return out;
 }
 
@@ -200,6 +208,12 @@ const TransitJitterBlock* ParameterLayout::transit_jitter(const std::string& pla
   for (const auto& b : blocks_)
     if (b->kind() == BlockKind::kTransitJitter && b->label() == planet_label)
       return static_cast<const TransitJitterBlock*>(b.get());
+  return nullptr;
+}
+
+const GpBlock* ParameterLayout::gaussian_process() const& {
+  for (const auto& b : blocks_)
+    if (b->kind() == BlockKind::kGaussianProcess) return static_cast<const GpBlock*>(b.get());
   return nullptr;
 }
 

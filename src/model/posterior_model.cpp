@@ -64,7 +64,8 @@ PosteriorModel make_posterior(const VelocityData& data, ParameterLayout layout, 
                               const TransitData& transits) {
   PosteriorModel model(std::move(layout), std::move(priors));
   const ParameterLayout& L = model.layout();
-  model.add_term(std::make_unique<VelocityTerm>(data, L));
+  if (L.gaussian_process() != nullptr) model.add_term(std::make_unique<GpVelocityTerm>(data, L));
+  else model.add_term(std::make_unique<WhiteNoiseVelocityTerm>(data, L));
   if (transits.size() == 0) return model;
   // Transit terms in letter order (b, c, ...), whatever the order of the blocks.
   for (int letter = 0; letter < 26; ++letter) {

@@ -3,6 +3,7 @@
 // set_default_priors.
 #pragma once
 
+#include <limits>
 #include <string>
 #include <vector>
 
@@ -36,6 +37,9 @@ struct PriorContext {
   PeriodRange periods;                // default period prior range
   EccentricityPrior eccentricity;     // default eccentricity prior of every planet
   const TransitData* transits = nullptr;  // for the transit-jitter scale (may be null)
+  // A rotation period the activity indicators show (days; NaN: none): centres the GP's
+  // rotation-period prior.
+  double rotation_hint_days = std::numeric_limits<double>::quiet_NaN();
 };
 
 }  // namespace apsides

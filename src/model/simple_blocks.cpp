@@ -117,3 +117,75 @@ void TransitEphemerisBlock::from_cube(std::span<const double> u, std::span<const
 }
 
 }  // namespace apsides
+
+// ---- Gaussian-process hyperparameters ---------------------------------------------------
+
+namespace apsides {
+
+GpBlock::GpBlock(gp::KernelKind kernel, const std::vector<std::string>& instrument_names, bool per_instrument_amplitude)
+    : ParameterBlock(BlockKind::kGaussianProcess, "gp"), kernel_(kernel) {
+  for (const auto& p : gp::kernel_parameters(kernel)) params_.push_back({"gp." + p.name, p.unit, false});
+  n_kernel_ = size();
+  if (!per_instrument_amplitude || instrument_names.size() < 2) return;
+  scale_slot_.assign(instrument_names.size(), -1);
+  for (std::size_t i = 1; i < instrument_names.size(); ++i) {
+    scale_slot_[i] = size();
+    params_.push_back({"gp.scale_" + instrument_names[i], "", false});
+  }
+}
+
+double GpBlock::scale(std::span<const double> theta, int instrument) const {
+  if (scale_slot_.empty()) return 1.0;
+  const int slot = scale_slot_.at(static_cast<std::size_t>(instrument));
+  return slot < 0 ? 1.0 : value(theta, slot);
+}
+
+void GpBlock::set_default_priors(const PriorContext& c, ModelPriors& priors) const {
+  const DataStats& st = c.stats;
+  const double err = std::max(st.median_err, 1e-6);
+  const double spread = std::max(0.5 * st.range, err);
+  const double base = std::max(st.baseline, 2.0);
+  // The rotation period: near the activity indicators' period when they show one
+  // (stated in the report), else anywhere from 1 d to half the baseline.
+  const bool hint = std::isfinite(c.rotation_hint_days) && c.rotation_hint_days > 0.0;
+  const Prior rotation = hint ? Prior::log_uniform(c.rotation_hint_days / 1.5, c.rotation_hint_days * 1.5)
+                              : Prior::log_uniform(1.0, std::max(2.0, 0.5 * base));
+  const Prior timescale = Prior::log_uniform(1.0, base);
+  for (int s = 0; s < n_kernel_; ++s) {
+    const std::string& n = info(s).name;
+    Prior p = Prior::log_uniform(0.1, 10.0);  // quality factors, smoothness
+    if (n == "gp.amplitude_ms") p = Prior::log_uniform(0.01 * err, 10.0 * spread);
+    else if (n == "gp.rotation_period_d") p = rotation;
+    else if (n == "gp.period_d") p = kernel_ == gp::KernelKind::kQuasiPeriodic ? rotation : Prior::log_uniform(1.0, base);
+    else if (n == "gp.timescale_d" || n == "gp.evolution_timescale_d") p = timescale;
+    else if (n == "gp.quality") p = kernel_ == gp::KernelKind::kOscillator ? Prior::log_uniform(0.1, 100.0) : Prior::log_uniform(0.1, 50.0);
+    else if (n == "gp.quality_difference") p = Prior::log_uniform(0.01, 50.0);
+    else if (n == "gp.mix") p = Prior::uniform(0.0, 1.0);
+    else if (n == "gp.epsilon_per_d") p = Prior::fixed(0.01);
+    priors.parameter[index(s)] = p;
+  }
+  for (int s = n_kernel_; s < size(); ++s) priors.parameter[index(s)] = Prior::log_uniform(0.1, 10.0);
+}
+
+void GpBlock::check_override(int slot, const Prior& prior, const std::string& where) const {
+  if (slot >= n_kernel_) return require_positive_support(prior, where, true);
+  const auto& p = gp::kernel_parameters(kernel_).at(static_cast<std::size_t>(slot));
+  if (p.lower == 0.0) require_positive_support(prior, where, p.lower_open);
+}
+
+double GpBlock::fit_start(int slot, const Prior& p) const {
+  switch (p.kind) {
+    case PriorKind::kFixed: return p.a;
+    case PriorKind::kLogUniform: return std::sqrt(p.a * p.b);
+    case PriorKind::kUniform: return 0.5 * (p.a + p.b);
+    case PriorKind::kNormal:
+    case PriorKind::kTruncatedNormal: return std::clamp(p.a, p.lower(), p.upper());
+    default: return ParameterBlock::fit_start(slot, p);
+  }
+}
+
+double GpBlock::fit_step(int slot, std::span<const double> theta, double, double width) const {
+  return std::max(0.1 * std::fabs(value(theta, slot)), 1e-3 * std::min(width, 1.0));
+}
+
+}  // namespace apsides

@@ -3,7 +3,11 @@
 // pair and one vectorised sin+cos pair, all in the same run.
 //
 // The "per_solve" counter is the CPU time per element; scripts/bench prints the ratios.
+// The kernels run on the SIMD target APSIDES_SIMD_TARGET names (else the best the CPU
+// has); the scalar baselines are ordinary code, the same under every target.
 #include <benchmark/benchmark.h>
+
+#include "bench_main.h"
 
 #include <cmath>
 #include <random>
@@ -128,7 +132,7 @@ void BM_ScalarSinCosPair(benchmark::State& state) {
 }
 BENCHMARK(BM_ScalarSinCosPair)->Arg(1000);
 
-// One vectorised sin+cos pair (glibc libmvec, reached from the kernels' flags).
+// One vectorised sin+cos pair (SLEEF on x86, Highway's Sin/Cos elsewhere; kernels::sincos_batch).
 void BM_VectorSinCosPair(benchmark::State& state) {
   const auto n = static_cast<std::size_t>(state.range(0));
   const Inputs in = make_inputs(n);
@@ -145,4 +149,4 @@ BENCHMARK(BM_VectorSinCosPair)->Arg(1000)->Arg(10000);
 
 }  // namespace
 
-BENCHMARK_MAIN();
+APSIDES_BENCHMARK_MAIN()

@@ -6,6 +6,8 @@
 // the "lnL" counter lets it check that both compute the same number.
 #include <benchmark/benchmark.h>
 
+#include "bench_main.h"
+
 #include <cmath>
 #include <vector>
 
@@ -67,4 +69,4 @@ BENCHMARK(BM_LogLikelihood<false>)->Name("BM_LogLikelihoodReference")->Arg(200)-
 
 }  // namespace
 
-BENCHMARK_MAIN();
+APSIDES_BENCHMARK_MAIN()

@@ -3,6 +3,8 @@
 // per call. Data: a fixed-seed uneven series, built outside the timed loop.
 #include <benchmark/benchmark.h>
 
+#include "bench_main.h"
+
 #include <cmath>
 #include <random>
 #include <vector>
@@ -51,4 +53,4 @@ BENCHMARK(BM_ExactOneThread)->Args({1000, 100000})->Unit(benchmark::kMillisecond
 BENCHMARK(BM_ExactTwoThreads)->Args({1000, 100000})->Unit(benchmark::kMillisecond)->UseRealTime();
 BENCHMARK(BM_Fast)->Args({1000, 100000})->Args({5000, 100000})->Unit(benchmark::kMillisecond)->UseRealTime();
 BENCHMARK(BM_Fast)->Args({50000, 1000000})->Unit(benchmark::kMillisecond)->UseRealTime()->Iterations(2);
-BENCHMARK_MAIN();
+APSIDES_BENCHMARK_MAIN()

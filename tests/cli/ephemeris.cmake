@@ -47,3 +47,25 @@ set_tests_properties(cli_ephemeris_unknown_planet PROPERTIES
 add_test(NAME cli_ephemeris_bad_outlier_sigma
          COMMAND $<TARGET_FILE:apsides> ephemeris ${_eph_demo} --outlier-sigma -3)
 set_tests_properties(cli_ephemeris_bad_outlier_sigma PROPERTIES WILL_FAIL TRUE)
+
+# Predictions from the model the data support, and claims gated by the evidence.
+set(_eph_t1 ${PROJECT_SOURCE_DIR}/tests/data/real/trappist1_transits_agol2021.csv)
+# TRAPPIST-1 f (Agol et al. 2021): a ~30 min timing variation; the sinusoid predicts, its
+# scatter is in the sigma, and the quadratic's curvature is not reported as a period change.
+add_test(NAME cli_ephemeris_trappist1f_predicts_with_the_variation
+         COMMAND ${CMAKE_COMMAND} -DCMD=$<TARGET_FILE:apsides>
+                 "-DARGS=ephemeris|${_eph_t1}|--planet|f|--next|3"
+                 "-DMATCH=-> sinusoid: BIC .*Predicted transits \\(sinusoid ephemeris.*A significant timing variation is present"
+                 "-DNOT_MATCH=period change favoured"
+                 -P ${CMAKE_CURRENT_LIST_DIR}/expect_unique_lines.cmake)
+# WASP-12b (Wong et al. 2022) with the timing-variation search on: the decay is still
+# favoured, because the quadratic beats the sinusoid too.
+add_test(NAME cli_ephemeris_wasp12_decay_beats_the_sinusoid
+         COMMAND ${CMAKE_COMMAND} -DCMD=$<TARGET_FILE:apsides>
+                 "-DARGS=ephemeris|${_eph_wasp}|--next|2"
+                 "-DMATCH=dP/dn  -1\\.0[0-9]+e-09.*\\(period change favoured\\).*Predicted transits \\(quadratic ephemeris"
+                 -P ${CMAKE_CURRENT_LIST_DIR}/expect_unique_lines.cmake)
+add_test(NAME cli_ephemeris_demo_notes_once
+         COMMAND ${CMAKE_COMMAND} -DCMD=$<TARGET_FILE:apsides> "-DARGS=ephemeris|${_eph_demo}|--next|3"
+                 "-DMATCH=Predicted transits \\(linear ephemeris"
+                 -P ${CMAKE_CURRENT_LIST_DIR}/expect_unique_lines.cmake)
