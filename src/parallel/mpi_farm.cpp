@@ -1,5 +1,8 @@
 // The MPI side of parallel.h (compiled only with APSIDES_MPI=ON). Only the main thread of
 // each process calls MPI (MPI_THREAD_FUNNELED).
+// The C API only (Open MPI and MPICH would otherwise pull in their deprecated C++ bindings).
+#define OMPI_SKIP_MPICXX 1
+#define MPICH_SKIP_MPICXX 1
 #include <mpi.h>
 
 #include <algorithm>
