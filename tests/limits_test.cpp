@@ -74,10 +74,10 @@ TEST_CASE("periodogram recovery of circular orbits in white noise follows the no
   o.mass_cells = 3;
   o.min_period_d = 9.0;
   o.max_period_d = 11.0;
-  o.min_msini_mearth = 3.0;
-  o.max_msini_mearth = 10.0;
+  o.min_msini_mearth = 4.5;
+  o.max_msini_mearth = 11.0;
   o.draw_within_cell = false;
-  o.injections = 300;
+  o.injections = 1000;
   o.seed = 11;
   o.eccentricity.kind = EccentricityPriorKind::kCircular;
   o.noise = InjectionNoise::kWhite;
