@@ -1357,3 +1357,241 @@ FigureFile write_trace_figure(const TraceFigureData& data, const std::string& pa
 }
 
 }  // namespace apsides
+
+// ---------------------------------------------------------------------------------------
+// Completeness map and population panels (log-log axes).
+
+namespace apsides {
+namespace {
+
+// Numbers 1, 2, 5 x 10^k beside a log10 y axis (as Canvas::log_numbers does under x).
+void log_y_numbers(Canvas& c) {
+  PLFLT x0, x1, y0, y1;
+  c.p().gvpw(x0, x1, y0, y1);
+  std::vector<double> values;
+  for (std::initializer_list<double> mantissas : {std::initializer_list<double>{1.0, 2.0, 5.0},
+                                                  std::initializer_list<double>{1.0, 1.5, 2.0, 3.0, 5.0, 7.0}}) {
+    values.clear();
+    for (int k = static_cast<int>(std::floor(y0)) - 1; k <= static_cast<int>(std::ceil(y1)); ++k)
+      for (double m : mantissas) {
+        const double v = m * std::pow(10.0, k);
+        if (std::log10(v) >= y0 && std::log10(v) <= y1) values.push_back(v);
+      }
+    if (values.size() >= 3) break;
+  }
+  if (values.size() > 10) {
+    values.erase(std::remove_if(values.begin(), values.end(),
+                                [](double v) { return std::abs(std::log10(v) - std::round(std::log10(v))) > 1e-9; }),
+                 values.end());
+  }
+  c.p().col0(kInk);
+  for (double v : values) {
+    const double pos = (std::log10(v) - y0) / (y1 - y0);
+    c.p().mtex("lv", 0.8, pos, 1.0, fmt::format("{:g}", v).c_str());
+  }
+}
+
+// Grid, frame and numbers of a panel whose world coordinates are log10 on both axes.
+void log_log_axes(Canvas& c, bool x_numbers) {
+  c.p().width(c.lw(1.0));
+  c.p().col0(kGrid);
+  c.p().box("gl", 0, 0, "gl", 0, 0);
+  c.p().col0(kInk);
+  c.set_text(0.9);
+  c.p().box("bcstl", 0, 0, "bcstl", 0, 0);
+  if (x_numbers) c.log_numbers();
+  log_y_numbers(c);
+  c.set_text(1.0);
+}
+
+// cmap1: white to Okabe-Ito blue to dark navy (as the corner plot's densities).
+void density_colours(Canvas& c) {
+  constexpr int n1 = 64;
+  std::array<PLINT, n1> r{}, g{}, b{};
+  for (int i = 0; i < n1; ++i) {
+    const double t = static_cast<double>(i) / (n1 - 1);
+    const double u = std::min(1.0, t * 1.4), w = std::max(0.0, (t - 0.714) / 0.286);
+    r[i] = static_cast<PLINT>(std::lround((255 + (0 - 255) * u) * (1 - w) + 10 * w));
+    g[i] = static_cast<PLINT>(std::lround((255 + (114 - 255) * u) * (1 - w) + 50 * w));
+    b[i] = static_cast<PLINT>(std::lround((255 + (178 - 255) * u) * (1 - w) + 100 * w));
+  }
+  c.p().scmap1(r.data(), g.data(), b.data(), n1);
+}
+
+void fill_rect(Canvas& c, double x0, double x1, double y0, double y1) {
+  PLFLT x[4] = {x0, x1, x1, x0}, y[4] = {y0, y0, y1, y1};
+  c.p().fill(4, x, y);
+}
+
+void check_edges(const std::string& fig, const std::string& field, const std::vector<double>& e) {
+  require(e.size() >= 2, fig, fmt::format("{} has {} values; it needs at least 2 (one cell)", field, e.size()));
+  check_finite(fig, field, e);
+  check_positive(fig, field, e);
+  for (std::size_t i = 1; i < e.size(); ++i)
+    if (!(e[i] > e[i - 1])) throw InputError(fmt::format("{}: {} must increase ({}[{}] = {} after {})", fig, field, field, i, e[i], e[i - 1]));
+}
+
+}  // namespace
+
+FigureFile write_completeness_figure(const CompletenessFigureData& data, const std::string& path,
+                                     const FigureOptions& options) {
+  const std::string fig = "completeness figure";
+  check_edges(fig, "period_edges_d", data.period_edges_d);
+  check_edges(fig, "mass_edges", data.mass_edges);
+  const std::size_t np = data.period_edges_d.size() - 1, nm = data.mass_edges.size() - 1;
+  check_same_size(fig, "fraction", data.fraction, "cells (period cells x mass cells)", np * nm);
+  for (std::size_t i = 0; i < data.fraction.size(); ++i)
+    if (!std::isnan(data.fraction[i]) && !(data.fraction[i] >= 0.0 && data.fraction[i] <= 1.0))
+      throw InputError(fmt::format("{}: fraction[{}] is {}; it must be in [0, 1] or NaN", fig, i, data.fraction[i]));
+  require(data.contour_levels.size() <= 4, fig, fmt::format("{} contour levels; at most 4", data.contour_levels.size()));
+  for (double l : data.contour_levels)
+    require(l > 0.0 && l < 1.0, fig, fmt::format("contour level {} must be in (0, 1)", l));
+  for (std::size_t i = 0; i < data.planets.size(); ++i)
+    if (!(data.planets[i].x > 0) || !(data.planets[i].y > 0) || !std::isfinite(data.planets[i].x) || !std::isfinite(data.planets[i].y))
+      throw InputError(fmt::format("{}: planets[{}] is ({}, {}); period and mass must be finite and > 0", fig, i,
+                                   data.planets[i].x, data.planets[i].y));
+
+  const double lx0 = std::log10(data.period_edges_d.front()), lx1 = std::log10(data.period_edges_d.back());
+  const double ly0 = std::log10(data.mass_edges.front()), ly1 = std::log10(data.mass_edges.back());
+  std::lock_guard<std::mutex> lock(plplot_mutex());
+  Canvas c(path, options, fig);
+  const double top = c.title(options.title);
+  std::vector<Canvas::LegendEntry> legend;
+  for (std::size_t k = 0; k < data.contour_levels.size(); ++k)
+    legend.push_back({fmt::format("{:g} % recovered", 100 * data.contour_levels[k]), kLevelColour[k], nullptr, kLevelStyle[k], 2.2});
+  if (!data.planets.empty()) legend.push_back({"planets found", kVermillion, "★"});
+  c.legend_row(legend, top - 0.9 * c.ch());
+  const double left = 0.03 + 7.5 * c.cw(), right = 1.0 - 12.0 * c.cw();
+  const Viewport v{left, right, 4.2 * c.ch(), top - 2.3 * c.ch()};
+  density_colours(c);
+  c.panel(v, lx0, lx1, ly0, ly1);
+  for (std::size_t i = 0; i < np; ++i)
+    for (std::size_t j = 0; j < nm; ++j) {
+      const double f = data.fraction[i * nm + j];
+      const double x0 = std::log10(data.period_edges_d[i]), x1 = std::log10(data.period_edges_d[i + 1]);
+      const double y0 = std::log10(data.mass_edges[j]), y1 = std::log10(data.mass_edges[j + 1]);
+      if (std::isnan(f)) c.p().col0(kGrid);
+      else c.p().col1(f);
+      fill_rect(c, x0, x1, y0, y1);
+    }
+  // Contours on the cell centres (in log coordinates); cells not computed count as 0.
+  if (np >= 2 && nm >= 2 && !data.contour_levels.empty()) {
+    std::vector<std::vector<double>> z(np, std::vector<double>(nm));
+    std::vector<const PLFLT*> rows(np);
+    std::vector<PLFLT> xg(np), yg(nm);
+    for (std::size_t i = 0; i < np; ++i) {
+      xg[i] = 0.5 * (std::log10(data.period_edges_d[i]) + std::log10(data.period_edges_d[i + 1]));
+      for (std::size_t j = 0; j < nm; ++j) z[i][j] = std::isnan(data.fraction[i * nm + j]) ? 0.0 : data.fraction[i * nm + j];
+      rows[i] = z[i].data();
+    }
+    for (std::size_t j = 0; j < nm; ++j) yg[j] = 0.5 * (std::log10(data.mass_edges[j]) + std::log10(data.mass_edges[j + 1]));
+    PLcGrid grid{xg.data(), yg.data(), nullptr, static_cast<PLINT>(np), static_cast<PLINT>(nm), 0};
+    for (std::size_t k = 0; k < data.contour_levels.size(); ++k) {
+      PLFLT level = data.contour_levels[k];
+      c.p().col0(kLevelColour[k]);
+      c.p().lsty(kLevelStyle[k]);
+      c.p().width(c.lw(2.2));
+      c.p().cont(rows.data(), static_cast<PLINT>(np), static_cast<PLINT>(nm), 1, static_cast<PLINT>(np), 1,
+                 static_cast<PLINT>(nm), &level, 1, plcallback::tr1, &grid);
+      c.p().lsty(1);
+    }
+  }
+  log_log_axes(c, true);
+  for (const auto& pl : data.planets) {
+    const double px = std::log10(pl.x), py = std::log10(pl.y);
+    if (px < lx0 || px > lx1 || py < ly0 || py > ly1) continue;
+    c.markers({px}, {py}, kVermillion, "★", 1.1);
+    if (!pl.label.empty()) {
+      c.set_text(0.85);
+      c.p().col0(kInk);
+      c.p().ptex(px + 0.012 * (lx1 - lx0), py + 0.02 * (ly1 - ly0), 1, 0, 0.0, esc(pl.label).c_str());
+      c.set_text(1.0);
+    }
+  }
+  c.ylabel(data.mass_label, 5.2);
+  c.xlabel("Period [d]");
+  // Colour bar.
+  const Viewport bar{right + 2.0 * c.cw(), right + 4.0 * c.cw(), v.y0, v.y1};
+  c.panel(bar, 0.0, 1.0, 0.0, 1.0);
+  for (int k = 0; k < 100; ++k) {
+    c.p().col1((k + 0.5) / 100.0);
+    fill_rect(c, 0.0, 1.0, k / 100.0, (k + 1) / 100.0);
+  }
+  c.p().col0(kInk);
+  c.set_text(0.85);
+  c.p().box("bc", 0, 0, "bcmstv", 0.2, 0);
+  c.set_text(1.0);
+  c.p().mtex("r", 4.6, 0.5, 0.5, esc(data.value_label).c_str());
+  return c.finish();
+}
+
+FigureFile write_population_figure(const PopulationFigureData& data, const std::string& path,
+                                   const FigureOptions& options) {
+  const std::string fig = "population figure";
+  require(!data.period_d.empty(), fig, "no planets; it needs at least 1");
+  check_finite(fig, "period_d", data.period_d);
+  check_positive(fig, "period_d", data.period_d);
+  check_same_size(fig, "mass", data.mass, "period_d", data.period_d.size());
+  check_same_size(fig, "a_au", data.a_au, "period_d", data.period_d.size());
+  for (std::size_t i = 0; i < data.mass.size(); ++i) {
+    if (!std::isnan(data.mass[i]) && !(data.mass[i] > 0 && std::isfinite(data.mass[i])))
+      throw InputError(fmt::format("{}: mass[{}] is {}; it must be > 0 or NaN", fig, i, data.mass[i]));
+    if (!std::isnan(data.a_au[i]) && !(data.a_au[i] > 0 && std::isfinite(data.a_au[i])))
+      throw InputError(fmt::format("{}: a_au[{}] is {}; it must be > 0 or NaN", fig, i, data.a_au[i]));
+  }
+  check_curve(fig, "line_period_d", data.line_period_d, "line_a_au", data.line_a_au);
+  check_positive(fig, "line_period_d", data.line_period_d);
+  check_positive(fig, "line_a_au", data.line_a_au);
+
+  std::vector<double> lp, lm, pa, la;
+  for (std::size_t i = 0; i < data.period_d.size(); ++i) {
+    if (!std::isnan(data.mass[i])) {
+      lp.push_back(std::log10(data.period_d[i]));
+      lm.push_back(std::log10(data.mass[i]));
+    }
+    if (!std::isnan(data.a_au[i])) {
+      pa.push_back(std::log10(data.period_d[i]));
+      la.push_back(std::log10(data.a_au[i]));
+    }
+  }
+  Range xr;
+  xr.add(log10_of(data.period_d));
+  xr = xr.padded(0.08);
+  Range mr, ar;
+  mr.add(lm);
+  mr = mr.padded(0.1);
+  ar.add(la);
+  std::vector<double> lx = log10_of(data.line_period_d), ly = log10_of(data.line_a_au);
+  sort_by_x(lx, ly);
+  ar = ar.padded(0.1);
+
+  std::lock_guard<std::mutex> lock(plplot_mutex());
+  Canvas c(path, options, fig);
+  const double top = c.title(options.title);
+  std::vector<Canvas::LegendEntry> legend{{"planet", kBlue, "●"}};
+  if (!lx.empty()) legend.push_back({data.line_label.empty() ? "reference" : data.line_label, kVermillion, nullptr, 2, 2.0});
+  c.legend_row(legend, top - 0.9 * c.ch());
+  const double left = 0.03 + 7.5 * c.cw(), right = 1.0 - 2.5 * c.cw();
+  const auto vp = stack(left, right, 4.2 * c.ch(), top - 2.3 * c.ch(), {1.0, 1.0}, 1.2 * c.ch());
+  c.panel(vp[0], xr.lo, xr.hi, mr.lo, mr.hi);
+  log_log_axes(c, false);
+  c.markers(lp, lm, kBlue, "●");
+  c.ylabel(data.mass_label, 5.2);
+  c.panel(vp[1], xr.lo, xr.hi, ar.lo, ar.hi);
+  log_log_axes(c, true);
+  if (lx.size() >= 2) {
+    std::vector<double> cx, cy;  // the curve inside the panel only
+    for (std::size_t i = 0; i < lx.size(); ++i)
+      if (lx[i] >= xr.lo && lx[i] <= xr.hi && ly[i] >= ar.lo && ly[i] <= ar.hi) {
+        cx.push_back(lx[i]);
+        cy.push_back(ly[i]);
+      }
+    c.polyline(cx, cy, kVermillion, 2.0, 2);
+  }
+  c.markers(pa, la, kBlue, "●");
+  c.ylabel("Semi-major axis a [au]", 5.2);
+  c.xlabel("Period [d]");
+  return c.finish();
+}
+
+}  // namespace apsides

@@ -234,6 +234,53 @@ PriorSpec parse_prior_entry(const Ctx& ctx, const std::string& name, const toml:
   return spec;
 }
 
+// [limits]: detection limits by injection-recovery (limits.h).
+void parse_limits(const Ctx& ctx, const toml::table& root, Project& pr) {
+  LimitsSettings& l = pr.limits;
+  const toml::table* t = get_table(ctx, root, "limits");
+  if (!t) return;
+  check_keys(ctx, *t, "limits", {"enabled", "period_cells", "mass_cells", "injections", "seed", "min_period_d",
+                                 "max_period_d", "min_msini_mearth", "max_msini_mearth", "noise", "recovery",
+                                 "eccentricity"});
+  l.enabled = get_bool(ctx, *t, "limits", "enabled", false);
+  auto count = [&](const char* key, int fallback) {
+    const long v = get_integer(ctx, *t, "limits", key, fallback);
+    if (v < 1 || v > 100000)
+      throw InputError(fmt::format("{} is {}; it must be between 1 and 100000", ctx.where(*t->get(key), full("limits", key)), v));
+    return static_cast<int>(v);
+  };
+  l.period_cells = count("period_cells", l.period_cells);
+  l.mass_cells = count("mass_cells", l.mass_cells);
+  l.injections = count("injections", l.injections);
+  const long seed = get_integer(ctx, *t, "limits", "seed", 1);
+  if (seed < 0) throw InputError(fmt::format("{} is {}; it must be >= 0", ctx.where(*t->get("seed"), "limits.seed"), seed));
+  l.seed = static_cast<unsigned long long>(seed);
+  auto positive = [&](const char* key, std::optional<double>& out) {
+    bool has = false;
+    const double v = get_number(ctx, *t, "limits", key, 0, &has);
+    if (!has) return;
+    if (!(v > 0)) throw InputError(fmt::format("{} is {}; it must be > 0", ctx.where(*t->get(key), full("limits", key)), v));
+    out = v;
+  };
+  positive("min_period_d", l.min_period_d);
+  positive("max_period_d", l.max_period_d);
+  positive("min_msini_mearth", l.min_msini_mearth);
+  positive("max_msini_mearth", l.max_msini_mearth);
+  if (l.min_period_d && l.max_period_d && !(*l.min_period_d < *l.max_period_d))
+    throw InputError(fmt::format("{}: limits.min_period_d = {} is not below limits.max_period_d = {}", ctx.path, *l.min_period_d, *l.max_period_d));
+  if (l.min_msini_mearth && l.max_msini_mearth && !(*l.min_msini_mearth < *l.max_msini_mearth))
+    throw InputError(fmt::format("{}: limits.min_msini_mearth = {} is not below limits.max_msini_mearth = {}", ctx.path, *l.min_msini_mearth, *l.max_msini_mearth));
+  if (const toml::node* n = t->get("noise")) l.noise = parse_injection_noise(get_string(ctx, *t, "limits", "noise", ""), ctx.where(*n, "limits.noise"));
+  if (const toml::node* n = t->get("recovery")) l.recovery = parse_recovery_test(get_string(ctx, *t, "limits", "recovery", ""), ctx.where(*n, "limits.recovery"));
+  if (const toml::node* n = t->get("eccentricity")) {
+    const std::string e = get_string(ctx, *t, "limits", "eccentricity", "beta");
+    if (e == "uniform") l.eccentricity = EccentricityPriorKind::kUniform;
+    else if (e == "beta") l.eccentricity = EccentricityPriorKind::kBeta;
+    else if (e == "circular") l.eccentricity = EccentricityPriorKind::kCircular;
+    else throw InputError(fmt::format("{} is '{}'; it must be \"beta\", \"uniform\" or \"circular\"", ctx.where(*n, "limits.eccentricity"), e));
+  }
+}
+
 // One function per table; each reads its own table(s) from the root and fills `pr`. To
 // add a table: write its function and add it to kTables (the unknown-key check of the
 // root reads the names from there); to add a key: add it to the table's key list and read it.
@@ -442,10 +489,33 @@ constexpr TableEntry kTables[] = {
     {"star", parse_star},     {"velocities", parse_velocities}, {"transits", parse_transits},
     {"search", parse_search}, {"model", parse_model},           {"noise", parse_noise},
     {"priors", parse_priors},
-    {"sampler", parse_sampler}, {"evidence", parse_evidence},
+    {"sampler", parse_sampler}, {"evidence", parse_evidence}, {"limits", parse_limits},
 };
 
 }  // namespace
+
+std::string to_string(InjectionNoise n) { return n == InjectionNoise::kWhite ? "white" : "residuals"; }
+
+std::string to_string(RecoveryTest r) {
+  switch (r) {
+    case RecoveryTest::kFullSearch: return "search";
+    case RecoveryTest::kPeriodogram: return "periodogram";
+    default: return "first_step";
+  }
+}
+
+InjectionNoise parse_injection_noise(const std::string& text, const std::string& where) {
+  if (text == "residuals") return InjectionNoise::kResiduals;
+  if (text == "white") return InjectionNoise::kWhite;
+  throw InputError(fmt::format("{} is '{}'; it must be \"residuals\" or \"white\"", where, text));
+}
+
+RecoveryTest parse_recovery_test(const std::string& text, const std::string& where) {
+  if (text == "first_step") return RecoveryTest::kFirstStep;
+  if (text == "search") return RecoveryTest::kFullSearch;
+  if (text == "periodogram") return RecoveryTest::kPeriodogram;
+  throw InputError(fmt::format("{} is '{}'; it must be \"first_step\", \"search\" or \"periodogram\"", where, text));
+}
 
 namespace {
 // The whole parser; `data_in_memory` (project_from_data): no [[velocities]] / [[transits]].

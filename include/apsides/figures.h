@@ -213,4 +213,44 @@ struct TraceFigureData {
 FigureFile write_trace_figure(const TraceFigureData& data, const std::string& path,
                               const FigureOptions& options = {});
 
+// ---------------------------------------------------------------------------------------
+// (7) Completeness map (detection limits): the fraction of injected planets recovered in
+// each cell of a period x mass grid, both axes logarithmic, as shaded cells (white = 0 to
+// dark blue = 1, with a colour bar; cells not computed left grey), contour lines at the
+// given levels (dash pattern AND colour per level), and planets marked on top.
+
+struct CompletenessFigureData {
+  std::vector<double> period_edges_d;   // n_p + 1 values, increasing, > 0 (log-spaced reads best)
+  std::vector<double> mass_edges;       // n_m + 1 values, increasing, > 0
+  // n_p x n_m values in [0, 1], period-major: fraction[i * n_m + j] for period cell i and
+  // mass cell j; NaN = not computed.
+  std::vector<double> fraction;
+  std::vector<double> contour_levels{0.5, 0.9, 0.99};  // each in (0, 1); at most 4
+  std::vector<MarkedPoint> planets;     // x = period [d], y = mass; drawn with labels
+  std::string mass_label = "Minimum mass m sin i [Earth masses]";
+  std::string value_label = "Fraction recovered";
+};
+
+FigureFile write_completeness_figure(const CompletenessFigureData& data, const std::string& path,
+                                     const FigureOptions& options = {});
+
+// ---------------------------------------------------------------------------------------
+// (8) A population of planets (e.g. a survey): two panels on log-log axes, mass against
+// period and semi-major axis against period, one marker per planet; in the second panel
+// an optional reference curve (e.g. Kepler's third law, P^2 proportional to a^3, for a
+// typical host), sampled by the caller.
+
+struct PopulationFigureData {
+  std::vector<double> period_d;         // one per planet, > 0
+  std::vector<double> mass;             // same size; NaN = unknown (not drawn in panel 1)
+  std::vector<double> a_au;             // same size; NaN = unknown (not drawn in panel 2)
+  std::string mass_label = "Minimum mass m sin i [Earth masses]";
+  std::vector<double> line_period_d;    // optional reference curve in panel 2
+  std::vector<double> line_a_au;
+  std::string line_label;
+};
+
+FigureFile write_population_figure(const PopulationFigureData& data, const std::string& path,
+                                   const FigureOptions& options = {});
+
 }  // namespace apsides

@@ -37,6 +37,12 @@
 //   [sampler]     walkers [0 = auto], max_steps [200000], ess_target [2000],
 //                 rhat_max [1.01], min_tau_multiple [50], seed [1], checkpoint_steps [1000]
 //   [evidence]    live_points [500], seed [1], bayes_threshold [5]
+//   [limits]      enabled [false], period_cells [20], mass_cells [20], injections [20],
+//                 seed [1], min_period_d [1], max_period_d [3 x baseline],
+//                 min_msini_mearth, max_msini_mearth [0.1 x / 100 x the mass of K = rms],
+//                 noise ["residuals" | "white"], recovery ["first_step" | "search" |
+//                 "periodogram"], eccentricity ["beta" | "uniform" | "circular"]
+//                 (injection-recovery completeness, limits.h)
 #pragma once
 
 #include <map>
@@ -120,6 +126,32 @@ struct EvidenceSettings {
   double bayes_threshold = 5.0;
 };
 
+// [limits]: injection-recovery detection limits (limits.h documents each setting).
+// What an injection is added to: the residuals of the model the search selects on the
+// data, or white noise with the stated uncertainties and that model's fitted jitters.
+enum class InjectionNoise { kResiduals, kWhite };
+// How a recovery is decided: the search's first step (one-planet fit seeded at the
+// strongest residual peak), the whole planet search, or a periodogram threshold alone.
+enum class RecoveryTest { kFirstStep, kFullSearch, kPeriodogram };
+std::string to_string(InjectionNoise n);   // "residuals", "white"
+std::string to_string(RecoveryTest r);     // "first_step", "search", "periodogram"
+// Parsers; throw InputError naming `where` for anything else.
+InjectionNoise parse_injection_noise(const std::string& text, const std::string& where);
+RecoveryTest parse_recovery_test(const std::string& text, const std::string& where);
+
+struct LimitsSettings {
+  bool enabled = false;  // `analyze` adds a detection-limits section to its report
+  int period_cells = 20;
+  int mass_cells = 20;
+  int injections = 20;   // per cell
+  unsigned long long seed = 1;
+  std::optional<double> min_period_d, max_period_d;          // unset: 1 d, 3 x baseline
+  std::optional<double> min_msini_mearth, max_msini_mearth;  // unset: from the residual rms
+  InjectionNoise noise = InjectionNoise::kResiduals;
+  RecoveryTest recovery = RecoveryTest::kFirstStep;
+  EccentricityPriorKind eccentricity = EccentricityPriorKind::kBeta;  // Kipping 2013
+};
+
 struct Project {
   std::string path;  // the project file
   std::string text;  // its full text, kept for the results file
@@ -131,6 +163,7 @@ struct Project {
   std::vector<PriorSpec> priors;
   SamplerSettings sampler;
   EvidenceSettings evidence;
+  LimitsSettings limits;
 
   // Data held in memory instead of read from files (project_from_data; the Python module
   // also keeps a loaded project's data here). When set, load_velocities / load_transits

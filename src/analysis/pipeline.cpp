@@ -1,5 +1,5 @@
 // `apsides analyze` as named stages (analysis.h): scan -> search -> compare -> sample ->
-// store -> transits -> figures -> report. Each stage reads and fills the Run state.
+// store -> transits -> limits ([limits] enabled) -> figures -> report. Each stage reads and fills the Run state.
 #include "analysis/pipeline.h"
 
 #include <fmt/format.h>
@@ -10,6 +10,7 @@
 #include <functional>
 
 #include "apsides/error.h"
+#include "apsides/limits.h"
 #include "apsides/sampling_run.h"
 
 namespace apsides {
@@ -267,6 +268,15 @@ void transit_stage(Run& run) {
   }
 }
 
+// Detection limits by injection and recovery (limits.h) into DIR/limits, finished cells
+// kept across runs; the report gets their section.
+void limits_stage(Run& run) {
+  run.stage("limits", "injection and recovery on the star's own data");
+  LimitsReportSection s = run_limits_for_analysis(run.project, run.dir.string(), run.options.threads, run.options.format);
+  run.limits_markdown = std::move(s.markdown);
+  run.stage("limits", s.result.BriefReport());
+}
+
 }  // namespace
 
 AnalysisOutcome run_analysis(const Project& project, const AnalysisOptions& options) {
@@ -295,6 +305,7 @@ AnalysisOutcome run_analysis(const Project& project, const AnalysisOptions& opti
   sample_stage(run);
   store_stage(run);
   if (run.transits.size() > 0) transit_stage(run);
+  if (project.limits.enabled) limits_stage(run);
   for (const auto& p : write_run_figures(*run.file, run.fig_dir.string(), run.figures)) run.report_figures.push_back(p);
   out.figures = run.report_figures;
   run.stage("figures", fmt::format("{} figure(s) in {}", run.report_figures.size(), run.fig_dir.string()));

@@ -130,6 +130,7 @@ std::string report_markdown(const Run& run) {
   for (const auto& pr : run.file->read_strings("/parameters/priors")) md << "- " << pr << "\n";
   if (run.file->has_attribute("/parameters", "prior_notes"))
     md << "- " << run.file->string_attribute("/parameters", "prior_notes") << "\n";
+  if (!run.limits_markdown.empty()) md << "\n" << run.limits_markdown;
   md << "\n## Cautions\n\n";
   for (const auto& c : run.out.cautions) md << "- " << c << "\n";
   md << "\nEverything (data, chains, derived chains, diagnostics, periodograms, comparison, nested samples) is in "

@@ -36,6 +36,8 @@ Command register_ephemeris(CLI::App& app);
 Command register_compare(CLI::App& app);
 Command register_scan(CLI::App& app);
 Command register_analyze(CLI::App& app);
+Command register_limits(CLI::App& app);
+Command register_survey(CLI::App& app);
 
 // True when a FILE argument is a project file (ends in .toml).
 bool is_project_file(const std::string& path);

@@ -28,6 +28,9 @@ int main(int argc, char** argv) {
   commands.push_back(apsides::cli::register_summarize(app));
   commands.push_back(apsides::cli::register_ephemeris(app));
   commands.push_back(apsides::cli::register_simulate(app));
+  // Many runs: detection limits of one star, a survey of many (threads or MPI ranks).
+  commands.push_back(apsides::cli::register_limits(app));
+  commands.push_back(apsides::cli::register_survey(app));
 
   try {
     app.parse(argc, argv);
