@@ -36,6 +36,7 @@ struct Run {
   bool reused = false;  // the sampling run was reused (--resume)
   RunSummary summary;
   std::vector<std::pair<std::string, EphemerisResult>> ephemerides;
+  std::string stability_markdown;  // the report's stability section (multi-planet results), "" otherwise
 
   Run(const Project& p, const AnalysisOptions& o, AnalysisOutcome& r) : project(p), options(o), out(r) {}
   void stage(const std::string& name, const std::string& status) const {

@@ -36,6 +36,9 @@ Command register_ephemeris(CLI::App& app);
 Command register_compare(CLI::App& app);
 Command register_scan(CLI::App& app);
 Command register_analyze(CLI::App& app);
+Command register_stability(CLI::App& app);
+// `apsides fit PROJECT` when the project's [model] dynamics is "nbody" (cmd_stability.cpp).
+int run_nbody_fit(const Project& project, const CommonOptions& common);
 
 // True when a FILE argument is a project file (ends in .toml).
 bool is_project_file(const std::string& path);

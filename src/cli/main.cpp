@@ -27,6 +27,7 @@ int main(int argc, char** argv) {
   commands.push_back(apsides::cli::register_compare(app));
   commands.push_back(apsides::cli::register_summarize(app));
   commands.push_back(apsides::cli::register_ephemeris(app));
+  commands.push_back(apsides::cli::register_stability(app));
   commands.push_back(apsides::cli::register_simulate(app));
 
   try {
