@@ -162,9 +162,9 @@ Scenario parse_scenario(const std::string& text, const std::string& path) {
       if (!t) throw InputError(fmt::format("{}: planets must be [[planets]] tables", path));
       allow(path, *t, "planets",
             {"period_d", "K_ms", "ecc", "omega_deg", "t_conj_bjd", "transiting", "mass_mearth", "inclination_deg"});
+      SimPlanet p;
       p.mass_mearth = num(path, *t, "planets", "mass_mearth", 0.0);
       p.inclination_deg = num(path, *t, "planets", "inclination_deg", 90.0);
-      SimPlanet p;
       p.period_d = num(path, *t, "planets", "period_d", 0.0);
       p.K_ms = num(path, *t, "planets", "K_ms", 0.0);
       p.ecc = num(path, *t, "planets", "ecc", 0.0);

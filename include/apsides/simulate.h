@@ -82,6 +82,8 @@ struct Scenario {
   std::vector<SimPlanet> planets;  // sorted by period when loaded
   double trend_c1 = 0.0, trend_c2 = 0.0;
   SimTransits transits;
+  bool nbody = false;                 // [nbody] present
+  double osculating_epoch_bjd = 0.0;  // [nbody] osculating_epoch_bjd (default start_bjd)
 
   std::string Validate() const;
 };

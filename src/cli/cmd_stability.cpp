@@ -90,6 +90,13 @@ struct StabilityArgs {
 
 }  // namespace
 
+void require_keplerian(const Project& pr, const std::string& command) {
+  if (pr.model.dynamics != Dynamics::kNbody) return;
+  throw InputError(fmt::format("{}: model.dynamics = \"nbody\": `apsides {}` has only the Keplerian model yet; use "
+                               "`apsides fit` (N-body MAP) and `apsides stability`",
+                               pr.path, command));
+}
+
 int run_nbody_fit(const Project& pr, const CommonOptions& common) {
   const NbodyProblem pb = nbody_problem(pr);
   const auto t0 = std::chrono::steady_clock::now();
