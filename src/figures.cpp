@@ -22,6 +22,7 @@
 #include <fmt/format.h>
 
 #include "apsides/error.h"
+#include "apsides/stability_analysis.h"
 
 namespace apsides {
 
@@ -1354,6 +1355,50 @@ FigureFile write_trace_figure(const TraceFigureData& data, const std::string& pa
   }
   c.xlabel("Step");
   return c.finish();
+}
+
+// ---------------------------------------------------------------------------------------
+// Stability of posterior draws (declared in stability_analysis.h).
+
+std::string write_stability_figure(const StabilityRunResult& r, const std::string& path) {
+  const std::string fig = "stability figure";
+  std::vector<double> xs, ys, xu, yu;
+  for (const DrawStability& d : r.summary.per_draw) {
+    if (!d.valid || !std::isfinite(d.min_separation_hill)) continue;
+    const double y = std::log10(std::max(d.max_amd_beta, 1e-6));
+    const bool good = std::isfinite(d.mean_megno) ? (d.survived && d.megno_regular) : d.amd;
+    (good ? xs : xu).push_back(d.min_separation_hill);
+    (good ? ys : yu).push_back(y);
+  }
+  require(!xs.empty() || !xu.empty(), fig, "no valid draw to show");
+  Range xr, yr;
+  xr.add(xs), xr.add(xu), xr.add(2.0 * std::sqrt(3.0));
+  yr.add(ys), yr.add(yu), yr.add(0.0);
+  xr = xr.padded(0.06);
+  yr = yr.padded(0.08);
+  std::lock_guard<std::mutex> lock(plplot_mutex());
+  FigureOptions options;
+  Canvas c(path, options, fig);
+  const double top = c.title(fmt::format("Stability of {} draws: Hill > 2√3 {:.0f} %, AMD {:.0f} %, regular MEGNO {}",
+                                         r.summary.draws, 100.0 * r.summary.fraction_hill_two_sqrt3,
+                                         100.0 * r.summary.fraction_amd,
+                                         std::isfinite(r.summary.fraction_megno_regular)
+                                             ? fmt::format("{:.0f} %", 100.0 * r.summary.fraction_megno_regular)
+                                             : std::string("not run")));
+  c.legend_row({{"survived, regular MEGNO", kBlue, "●"}, {"unstable or chaotic", kVermillion, "●"}},
+               top - 0.9 * c.ch());
+  const double left = 0.03 + 7.5 * c.cw(), right = 1.0 - 2.5 * c.cw();
+  const Viewport v{left, right, 4.2 * c.ch(), top - 2.3 * c.ch()};
+  c.panel(v, xr.lo, xr.hi, yr.lo, yr.hi);
+  c.axes(true, true);
+  c.hline(0.0, xr.lo, xr.hi, kMuted, 3, 1.2);
+  const double x0 = 2.0 * std::sqrt(3.0);
+  c.polyline({x0, x0}, {yr.lo, yr.hi}, kMuted, 1.2, 3);
+  if (!xs.empty()) c.markers(xs, ys, kBlue, "●");
+  if (!xu.empty()) c.markers(xu, yu, kVermillion, "●");
+  c.ylabel("log10 AMD ratio β (max over pairs)", 5.2);
+  c.xlabel("Smallest mutual Hill separation Δ (dashed: 2√3)");
+  return c.finish().path;
 }
 
 }  // namespace apsides

@@ -393,7 +393,22 @@ void parse_search(const Ctx& ctx, const toml::table& root, Project& pr) {
 void parse_model(const Ctx& ctx, const toml::table& root, Project& pr) {
   const toml::table* t = get_table(ctx, root, "model");
   if (!t) return;
-  check_keys(ctx, *t, "model", {"planets", "trend", "fit_jitter", "eccentricity", "periastron_outside_star"});
+  check_keys(ctx, *t, "model",
+             {"planets", "trend", "fit_jitter", "eccentricity", "periastron_outside_star", "dynamics", "osculating_epoch"});
+  if (const toml::node* n = t->get("dynamics")) {
+    const std::string d = get_string(ctx, *t, "model", "dynamics", "keplerian");
+    if (d == "keplerian") pr.model.dynamics = Dynamics::kKeplerian;
+    else if (d == "nbody") pr.model.dynamics = Dynamics::kNbody;
+    else throw InputError(fmt::format("{} is '{}'; it must be \"keplerian\" or \"nbody\"", ctx.where(*n, "model.dynamics"), d));
+  }
+  if (const toml::node* n = t->get("osculating_epoch")) {
+    const double e = get_number(ctx, *t, "model", "osculating_epoch", 0.0);
+    if (!std::isfinite(e) || e < 1e6)
+      throw InputError(fmt::format("{} is {}; it must be a full BJD_TDB (e.g. 2459000.5)", ctx.where(*n, "model.osculating_epoch"), e));
+    if (pr.model.dynamics != Dynamics::kNbody)
+      throw InputError(fmt::format("{}: an osculating epoch needs dynamics = \"nbody\"", ctx.where(*n, "model.osculating_epoch")));
+    pr.nbody.osculating_epoch_bjd = e;
+  }
   if (const toml::node* n = t->get("planets")) {
     long k = get_integer(ctx, *t, "model", "planets", 0);
     if (k < 0 || k > 10) throw InputError(fmt::format("{} is {}; it must be between 0 and 10", ctx.where(*n, "model.planets"), k));
@@ -480,6 +495,26 @@ void parse_evidence(const Ctx& ctx, const toml::table& root, Project& pr) {
   e.bayes_threshold = get_number(ctx, *t, "evidence", "bayes_threshold", e.bayes_threshold);
 }
 
+void parse_nbody(const Ctx& ctx, const toml::table& root, Project& pr) {
+  const toml::table* t = get_table(ctx, root, "nbody");
+  if (!t) return;
+  check_keys(ctx, *t, "nbody", {"planets", "step_fraction", "step_days", "coplanar", "inclination_deg"});
+  const toml::node* first = t->cbegin() != t->cend() ? &t->cbegin()->second : nullptr;
+  if (first != nullptr && pr.model.dynamics != Dynamics::kNbody)
+    throw InputError(fmt::format("{}: an [nbody] table needs [model] dynamics = \"nbody\"", ctx.where(*first, "nbody")));
+  NbodySettings& s = pr.nbody;
+  if (t->get("planets")) s.n_planets = static_cast<int>(get_integer(ctx, *t, "nbody", "planets", 0));
+  s.step_fraction = get_number(ctx, *t, "nbody", "step_fraction", s.step_fraction);
+  s.step_days = get_number(ctx, *t, "nbody", "step_days", s.step_days);
+  s.coplanar = get_bool(ctx, *t, "nbody", "coplanar", s.coplanar);
+  s.inclination_deg = get_number(ctx, *t, "nbody", "inclination_deg", s.inclination_deg);
+  if (const std::string m = s.Validate(); !m.empty()) {
+    const std::string key = m.substr(6, m.find(' ') - 6);
+    const toml::node* n = t->get(key);
+    throw InputError(n != nullptr ? fmt::format("{}:{}: {}", ctx.path, n->source().begin.line, m) : m);
+  }
+}
+
 // The project's tables, in the order they are read (a later table may rely on an earlier one).
 struct TableEntry {
   const char* name;
@@ -490,6 +525,7 @@ constexpr TableEntry kTables[] = {
     {"search", parse_search}, {"model", parse_model},           {"noise", parse_noise},
     {"priors", parse_priors},
     {"sampler", parse_sampler}, {"evidence", parse_evidence}, {"limits", parse_limits},
+    {"nbody", parse_nbody},
 };
 
 }  // namespace
@@ -690,4 +726,8 @@ std::vector<int> Project::transit_jitter_planets() const {
   std::sort(out.begin(), out.end());
   return out;
 }
+}  // namespace apsides
+
+namespace apsides {
+std::string to_string(Dynamics d) { return d == Dynamics::kNbody ? "nbody" : "keplerian"; }
 }  // namespace apsides

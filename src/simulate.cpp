@@ -14,6 +14,7 @@
 
 #include "apsides/constants.h"
 #include "apsides/error.h"
+#include "apsides/nbody.h"
 #include "apsides/orbit.h"
 #include "text_table.h"
 
@@ -82,6 +83,18 @@ std::string Scenario::Validate() const {
     if (!(p.K_ms >= 0)) return fmt::format("planet {}: K_ms = {}; it must be >= 0", j + 1, p.K_ms);
     if (!(p.ecc >= 0 && p.ecc < 1)) return fmt::format("planet {}: ecc = {}; it must be in [0, 1)", j + 1, p.ecc);
   }
+  if (nbody) {
+    for (std::size_t j = 0; j < planets.size(); ++j) {
+      const auto& p = planets[j];
+      if (!(p.mass_mearth > 0))
+        return fmt::format("planet {}: mass_mearth = {}; an [nbody] scenario needs masses > 0", j + 1, p.mass_mearth);
+      if (p.K_ms != 0) return fmt::format("planet {}: K_ms is not used in an [nbody] scenario (give mass_mearth)", j + 1);
+      if (!(p.inclination_deg > 0 && p.inclination_deg < 180))
+        return fmt::format("planet {}: inclination_deg = {}; it must be in (0, 180)", j + 1, p.inclination_deg);
+    }
+    if (transits.ttv_amplitude_d != 0)
+      return "transits.ttv_amplitude_d: the timing variations of an [nbody] scenario are the engine's; leave it 0";
+  }
   if (transits.enabled) {
     const int idx = transits.planet.size() == 1 ? transits.planet[0] - 'b' : -1;
     if (idx < 0 || idx >= static_cast<int>(planets.size()))
@@ -100,7 +113,7 @@ Scenario parse_scenario(const std::string& text, const std::string& path) {
     throw InputError(fmt::format("{}:{}:{}: TOML syntax error: {}", path, e.source().begin.line,
                                  e.source().begin.column, std::string(e.description())));
   }
-  allow(path, root, "", {"seed", "star", "observing", "instruments", "planets", "trend", "transits"});
+  allow(path, root, "", {"seed", "star", "observing", "instruments", "planets", "trend", "transits", "nbody"});
   Scenario s;
   if (const toml::node* n = root.get("seed")) {
     if (!n->is_integer() || *n->value<int64_t>() < 0)
@@ -147,8 +160,11 @@ Scenario parse_scenario(const std::string& text, const std::string& path) {
     for (auto& e : *a) {
       auto* t = e.as_table();
       if (!t) throw InputError(fmt::format("{}: planets must be [[planets]] tables", path));
-      allow(path, *t, "planets", {"period_d", "K_ms", "ecc", "omega_deg", "t_conj_bjd", "transiting"});
+      allow(path, *t, "planets",
+            {"period_d", "K_ms", "ecc", "omega_deg", "t_conj_bjd", "transiting", "mass_mearth", "inclination_deg"});
       SimPlanet p;
+      p.mass_mearth = num(path, *t, "planets", "mass_mearth", 0.0);
+      p.inclination_deg = num(path, *t, "planets", "inclination_deg", 90.0);
       p.period_d = num(path, *t, "planets", "period_d", 0.0);
       p.K_ms = num(path, *t, "planets", "K_ms", 0.0);
       p.ecc = num(path, *t, "planets", "ecc", 0.0);
@@ -177,6 +193,11 @@ Scenario parse_scenario(const std::string& text, const std::string& path) {
     s.transits.ttv_amplitude_d = num(path, *t, "transits", "ttv_amplitude_d", 0.0);
     s.transits.ttv_period_epochs = num(path, *t, "transits", "ttv_period_epochs", 0.0);
     s.transits.ttv_phase_deg = num(path, *t, "transits", "ttv_phase_deg", 0.0);
+  }
+  if (auto* t = root["nbody"].as_table()) {
+    allow(path, *t, "nbody", {"osculating_epoch_bjd"});
+    s.nbody = true;
+    s.osculating_epoch_bjd = num(path, *t, "nbody", "osculating_epoch_bjd", s.start_bjd);
   }
   if (auto msg = s.Validate(); !msg.empty()) throw InputError(fmt::format("{}: {}", path, msg));
   return s;
@@ -215,10 +236,20 @@ SimulatedData simulate(const Scenario& sc) {
   }
 
   std::vector<Planet> planets;
+  NbodySystem system;  // [nbody]: the interacting planets (Keplerian `planets` unused)
+  system.star_mass_msun = sc.mass_msun;
+  system.osculating_epoch_days = sc.osculating_epoch_bjd - t_mid;
   for (const auto& p : sc.planets) {
+    if (sc.nbody) {
+      const double mu = p.mass_mearth * constants::kGMEarth / constants::kGMSun / sc.mass_msun;
+      system.planets.push_back(NbodyPlanet::from_elements(mu, p.period_d, p.ecc, p.omega_deg * constants::kPi / 180.0,
+                                                          p.t_conj_bjd - t_mid, p.inclination_deg * constants::kPi / 180.0));
+      continue;
+    }
     planets.push_back(Planet::from_elements(p.period_d, p.K_ms, p.ecc, p.omega_deg * constants::kPi / 180.0,
                                             p.t_conj_bjd - t_mid));
   }
+  std::vector<double> row_scale;  // per velocity row, for the N-body velocities added below
   nlohmann::json truth;
   truth["star"] = {{"name", sc.star_name}, {"mass_msun", sc.mass_msun}, {"mass_err_msun", sc.mass_err_msun},
                    {"radius_rsun", sc.radius_rsun}};
@@ -251,9 +282,17 @@ SimulatedData simulate(const Scenario& sc) {
       const double sigma = inst.sigma_ms * std::exp(inst.sigma_scatter * gauss(rng) - 0.5 * inst.sigma_scatter * inst.sigma_scatter);
       const double noise = std::sqrt(sigma * sigma + inst.jitter_ms * inst.jitter_ms) * gauss(rng);
       out.velocities.push_back({t, (v + noise) * scale, sigma * scale, inst.name});
+      row_scale.push_back(scale);
     }
     truth["instruments"].push_back({{"name", inst.name}, {"offset_ms", inst.offset_ms}, {"jitter_ms", inst.jitter_ms},
                                     {"n_points", inst.n_points}, {"velocity_unit", to_string(inst.unit)}});
+  }
+  if (sc.nbody && !out.velocities.empty()) {
+    std::vector<double> times;
+    for (const auto& r : out.velocities) times.push_back(static_cast<double>(r.time_bjd - ref));
+    const NbodyObservables obs = compute_observables(system, times, {});
+    if (!obs.ok()) throw InputError(fmt::format("[nbody] scenario: the system cannot be integrated: {}", obs.message));
+    for (std::size_t i = 0; i < times.size(); ++i) out.velocities[i].velocity += obs.star_velocity_m_s[i] * row_scale[i];
   }
   std::stable_sort(out.velocities.begin(), out.velocities.end(),
                    [](const auto& a, const auto& b) { return a.time_bjd < b.time_bjd; });
@@ -268,6 +307,14 @@ SimulatedData simulate(const Scenario& sc) {
                          {"a_au", semi_major_axis_au(p.period_d, sc.mass_msun, m)}, {"transiting", p.transiting}};
     const double tp = time_of_periastron(p.period_d, p.ecc, p.omega_deg * constants::kPi / 180.0, p.t_conj_bjd - t_mid);
     pj["t_peri_bjd"] = tp + t_mid;
+    if (sc.nbody) {
+      const double mp = p.mass_mearth * constants::kGMEarth / constants::kGMSun;
+      pj["mass_mearth"] = p.mass_mearth;
+      pj["inclination_deg"] = p.inclination_deg;
+      pj["K_ms"] = semi_amplitude_m_s(p.period_d, mp * std::sin(p.inclination_deg * constants::kPi / 180.0), sc.mass_msun, p.ecc);
+      pj["msini_mearth"] = p.mass_mearth * std::sin(p.inclination_deg * constants::kPi / 180.0);
+      pj["note"] = "osculating Jacobi elements at the osculating epoch (N-body)";
+    }
     truth["planets"].push_back(pj);
   }
   truth["trend"] = {{"c1_ms_per_d", sc.trend_c1}, {"c2_ms_per_d2", sc.trend_c2}, {"reference_bjd", t_mid}};
@@ -285,7 +332,22 @@ SimulatedData simulate(const Scenario& sc) {
     std::shuffle(epochs.begin(), epochs.end(), rng);
     epochs.resize(static_cast<std::size_t>(tr.n_transits));
     std::sort(epochs.begin(), epochs.end());
-    for (long long n : epochs) {
+    std::vector<double> engine_times;
+    if (sc.nbody) {
+      std::vector<std::vector<long long>> req(sc.planets.size());
+      req[static_cast<std::size_t>(tr.planet[0] - 'b')] = epochs;
+      const NbodyObservables obs = compute_observables(system, {}, req);
+      if (!obs.ok()) throw InputError(fmt::format("[nbody] scenario: the system cannot be integrated: {}", obs.message));
+      engine_times = obs.transit_times_days[static_cast<std::size_t>(tr.planet[0] - 'b')];
+    }
+    for (std::size_t k = 0; k < epochs.size(); ++k) {
+      const long long n = epochs[k];
+      if (sc.nbody) {
+        const long double linear = static_cast<long double>(p.t_conj_bjd) + static_cast<long double>(n) * p.period_d;
+        const long double t = ref + static_cast<long double>(engine_times[k]) + tr.sigma_d * gauss(rng);
+        out.transits.push_back({n, t, tr.sigma_d, static_cast<double>(ref + static_cast<long double>(engine_times[k]) - linear)});
+        continue;
+      }
       double ttv = 0.0;
       if (tr.ttv_amplitude_d != 0.0 && tr.ttv_period_epochs > 0.0)
         ttv = tr.ttv_amplitude_d * std::sin(constants::kTwoPi * static_cast<double>(n) / tr.ttv_period_epochs +

@@ -38,7 +38,15 @@ struct ModelLayout;
 struct Planet;
 struct PriorContext;  // defined in src/model (data statistics the defaults use)
 
-enum class BlockKind { kPlanet, kInstrument, kTrend, kTransitJitter, kTransitEphemeris, kGaussianProcess };
+enum class BlockKind {
+  kPlanet,
+  kInstrument,
+  kTrend,
+  kTransitJitter,
+  kTransitEphemeris,
+  kGaussianProcess,
+  kNbodyPlanet,  // a planet of an N-body model (nbody_model.h)
+};
 std::string to_string(BlockKind kind);
 
 // One entry of theta.
@@ -325,7 +333,7 @@ class ParameterLayout {
   // on a temporary (keep the layout in a variable).
   std::vector<const PlanetBlock*> planets() const&;
   std::vector<const InstrumentBlock*> instruments() const&;  // by instrument index
-  std::vector<const OrbitBlock*> orbits() const&;             // planets and transit-only ephemerides
+  std::vector<const OrbitBlock*> orbits() const&;             // planets (Keplerian, N-body) and transit-only ephemerides
   const TrendBlock* trend() const&;
   const TransitJitterBlock* transit_jitter(const std::string& planet_label) const&;
   const OrbitBlock* orbit(const std::string& label) const&;

@@ -32,7 +32,10 @@
 //                 oversample [10], fap_threshold [0.001]
 //   [model]       planets [from search], trend ["none" | "linear" | "quadratic"],
 //                 fit_jitter [true], eccentricity ["uniform" | "beta" | "circular"],
-//                 periastron_outside_star [true]
+//                 periastron_outside_star [true], dynamics ["keplerian" | "nbody"],
+//                 osculating_epoch [the data's reference epoch] (BJD_TDB; N-body only)
+//   [nbody]       planets [the planets with transit times], step_fraction [1/30],
+//                 step_days [0: from step_fraction], coplanar [true], inclination_deg [90]
 //   [priors]      "<param>" = { dist = "...", ... } overriding defaults (prior.h)
 //   [sampler]     walkers [0 = auto], max_steps [200000], ess_target [2000],
 //                 rhat_max [1.01], min_tau_multiple [50], seed [1], checkpoint_steps [1000]
@@ -45,6 +48,7 @@
 //                 (injection-recovery completeness, limits.h)
 #pragma once
 
+#include <limits>
 #include <map>
 #include <limits>
 #include <optional>
@@ -88,7 +92,24 @@ struct SearchSettings {
   double min_bic_improvement = 10.0;  // see SearchOptions (fit.h)
 };
 
+// How the planets move: independent Keplerian orbits (default), or interacting planets
+// integrated as an N-body system (nbody_model.h).
+enum class Dynamics { kKeplerian, kNbody };
+std::string to_string(Dynamics d);
+
+// [model] osculating_epoch and the [nbody] table (nbody_model.h documents the model).
+struct NbodySettings {
+  int n_planets = 0;                 // [nbody] planets; 0: the planets with transit times
+  double osculating_epoch_bjd = std::numeric_limits<double>::quiet_NaN();  // NaN: the data's reference epoch
+  double step_fraction = 1.0 / 30.0; // [nbody] step_fraction: WH step / innermost period
+  double step_days = 0.0;            // [nbody] step_days: > 0 a fixed step (below half the innermost period)
+  bool coplanar = true;              // [nbody] coplanar
+  double inclination_deg = 90.0;     // [nbody] inclination_deg: the common inclination
+  std::string Validate() const;      // "" or "nbody.field = value: must be ..."
+};
+
 struct ModelSettings {
+  Dynamics dynamics = Dynamics::kKeplerian;  // [model] dynamics = "keplerian" | "nbody"
   std::optional<int> planets;
   Trend trend = Trend::kNone;
   bool fit_jitter = true;
@@ -170,6 +191,7 @@ struct Project {
   // return them instead of reading `velocities` / `transits`.
   std::optional<VelocityData> velocity_data;
   std::optional<TransitData> transit_data;
+  NbodySettings nbody;
 
   // Reads and combines every [[velocities]] file (a missing file is reported with the
   // project line naming it), then checks that every [priors] key naming an instrument

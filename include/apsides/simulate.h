@@ -19,6 +19,12 @@
 //   [trend]       c1_ms_per_d [0], c2_ms_per_d2 [0] (about the middle of the span)
 //   [transits]    planet ["b"], n_transits [20], sigma_d [0.0005], ttv_amplitude_d [0],
 //                 ttv_period_epochs [0], ttv_phase_deg [0]
+//   [nbody]       interacting planets (nbody.h): present, the planets pull on each other;
+//                 velocities and transit times come from the N-body engine, each planet
+//                 takes mass_mearth instead of K_ms (and inclination_deg [90]); elements are
+//                 osculating Jacobi elements at osculating_epoch_bjd [the start of the
+//                 observations]. Keys: osculating_epoch_bjd. The project written alongside
+//                 selects dynamics = "nbody". ttv_* keys must be 0 (the TTVs are the engine's).
 #pragma once
 
 #include <string>
@@ -47,6 +53,8 @@ struct SimPlanet {
   double omega_deg = 90.0;
   double t_conj_bjd = 0.0;
   bool transiting = false;
+  double mass_mearth = 0.0;       // N-body mode
+  double inclination_deg = 90.0;  // N-body mode
 };
 
 struct SimTransits {
@@ -74,6 +82,8 @@ struct Scenario {
   std::vector<SimPlanet> planets;  // sorted by period when loaded
   double trend_c1 = 0.0, trend_c2 = 0.0;
   SimTransits transits;
+  bool nbody = false;                 // [nbody] present
+  double osculating_epoch_bjd = 0.0;  // [nbody] osculating_epoch_bjd (default start_bjd)
 
   std::string Validate() const;
 };

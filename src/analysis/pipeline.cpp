@@ -1,6 +1,7 @@
 // `apsides analyze` as named stages (analysis.h): scan -> search -> compare -> sample ->
 // store -> transits -> limits ([limits] enabled) -> figures -> report. Each stage reads and fills the Run state.
 #include "analysis/pipeline.h"
+#include "apsides/stability_analysis.h"
 
 #include <fmt/format.h>
 
@@ -233,6 +234,34 @@ void store_stage(Run& run) {
                                      run.summary.rhat_max, run.summary.ess_min));
 }
 
+// 5b. Orbital stability of the posterior draws of a multi-planet result (stability_analysis.h):
+// 100 draws, Hill and AMD criteria and a 2000-inner-orbit N-body run with MEGNO.
+void stability_stage(Run& run) {
+  if (run.summary.n_planets < 2) return;
+  if (!run.project.star.mass_msun) {
+    run.stability_markdown = "## Orbital stability\n\nNot assessed: the planets' masses need the star's mass ([star] "
+                             "mass_msun).\n\n";
+    run.stage("stability", "skipped: no star mass");
+    return;
+  }
+  StabilityRunOptions o;
+  o.max_draws = 100;
+  o.stability.megno.inner_orbits = 2000.0;
+  o.stability.threads = 0;
+  const StabilityRunResult r = stability_of_run(run.out.results_path, o);
+  std::string fig;
+  try {
+    const std::string path = (run.fig_dir / "stability.png").string();
+    write_stability_figure(r, path);
+    fig = fs::relative(path, run.dir).string();
+    run.report_figures.push_back(path);
+  } catch (const InputError& e) {
+    run.stage("stability", std::string("no figure: ") + e.what());
+  }
+  run.stability_markdown = stability_markdown(r, fig) + "\n";
+  run.stage("stability", r.BriefReport());
+}
+
 // 6. Each transiting planet's ephemeris, O-C and predictions.
 void transit_stage(Run& run) {
   std::vector<std::string> labels;
@@ -307,6 +336,7 @@ AnalysisOutcome run_analysis(const Project& project, const AnalysisOptions& opti
   if (run.transits.size() > 0) transit_stage(run);
   if (project.limits.enabled) limits_stage(run);
   for (const auto& p : write_run_figures(*run.file, run.fig_dir.string(), run.figures)) run.report_figures.push_back(p);
+  stability_stage(run);
   out.figures = run.report_figures;
   run.stage("figures", fmt::format("{} figure(s) in {}", run.report_figures.size(), run.fig_dir.string()));
   out.cautions = analysis::report_cautions();

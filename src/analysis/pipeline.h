@@ -37,6 +37,7 @@ struct Run {
   RunSummary summary;
   std::vector<std::pair<std::string, EphemerisResult>> ephemerides;
   std::string limits_markdown;  // the detection-limits section ([limits] enabled = true)
+  std::string stability_markdown;  // the report's stability section (multi-planet results), "" otherwise
 
   Run(const Project& p, const AnalysisOptions& o, AnalysisOutcome& r) : project(p), options(o), out(r) {}
   void stage(const std::string& name, const std::string& status) const {

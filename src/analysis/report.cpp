@@ -125,6 +125,7 @@ std::string report_markdown(const Run& run) {
   for (int p = 0; p < run.summary.n_planets; ++p)
     md << figure_links(run, "corner_" + planet_label(p), "corner " + planet_label(p));
   transit_section(run, md);
+  md << run.stability_markdown;
   md << "## Convergence\n\n```\n" << run.summary.FullReport() << "```\n\n" << figure_links(run, "traces", "traces");
   md << "## Priors\n\n";
   for (const auto& pr : run.file->read_strings("/parameters/priors")) md << "- " << pr << "\n";

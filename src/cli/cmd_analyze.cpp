@@ -43,6 +43,7 @@ Command register_analyze(CLI::App& app) {
   add_common_options(cmd, args->common);
   return {cmd, [args]() -> int {
             const Project project = load_project(args->project);
+            require_keplerian(project, "analyze");
             AnalysisOptions o;
             o.out_dir = args->out_dir;
             o.resume = args->resume;

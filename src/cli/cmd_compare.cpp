@@ -64,6 +64,7 @@ Command register_compare(CLI::App& app) {
   add_common_options(cmd, args->common);
   return {cmd, [args]() -> int {
             const Project project = load_project(args->project);
+            require_keplerian(project, "compare");
             const VelocityData data = project.load_velocities();
             print_warnings(data);
             const TransitData transits = project.transits.empty() ? TransitData{} : project.load_transits();

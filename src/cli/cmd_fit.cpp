@@ -107,6 +107,7 @@ Command register_fit(CLI::App& app) {
             const std::optional<double> offset = time_offset_value(time_offset, args->time_offset);
             if (args->files.size() == 1 && is_project_file(args->files[0])) {
               const Project pr = load_project_with_time_offset(args->files[0], offset);
+              if (pr.model.dynamics == Dynamics::kNbody) return run_nbody_fit(pr, args->common);
               const VelocityData data = pr.load_velocities();
               print_warnings(data);
               sp = search_problem(pr, data, pr.transits.empty() ? TransitData{} : pr.load_transits());

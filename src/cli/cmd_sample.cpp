@@ -48,6 +48,7 @@ Command register_sample(CLI::App& app) {
   add_common_options(cmd, args->common);
   return {cmd, [args]() -> int {
             const Project project = load_project(args->project);
+            require_keplerian(project, "sample");
             SamplingRunOptions o;
             o.out_path = args->out;
             o.resume = args->resume;

@@ -35,6 +35,10 @@ std::string project_text(const Scenario& sc, const SimulatedData& sim) {
     s += fmt::format("\n[[transits]]\nfile = \"transits.csv\"\nplanet = \"{}\"\n{}", sc.transits.planet, as_given);
   }
   s += "\n[search]\nmax_planets = 3\n";
+  if (sc.nbody) {
+    s += fmt::format("\n[model]\ndynamics = \"nbody\"\nosculating_epoch = {:.6f}\n\n[nbody]\nplanets = {}\n",
+                     sc.osculating_epoch_bjd, sc.planets.size());
+  }
   return s;
 }
 }  // namespace

@@ -38,6 +38,11 @@ Command register_scan(CLI::App& app);
 Command register_analyze(CLI::App& app);
 Command register_limits(CLI::App& app);
 Command register_survey(CLI::App& app);
+Command register_stability(CLI::App& app);
+// `apsides fit PROJECT` when the project's [model] dynamics is "nbody" (cmd_stability.cpp).
+int run_nbody_fit(const Project& project, const CommonOptions& common);
+// InputError for a project with dynamics = "nbody" in a command that only has the Keplerian model yet.
+void require_keplerian(const Project& project, const std::string& command);
 
 // True when a FILE argument is a project file (ends in .toml).
 bool is_project_file(const std::string& path);

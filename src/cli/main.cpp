@@ -27,6 +27,7 @@ int main(int argc, char** argv) {
   commands.push_back(apsides::cli::register_compare(app));
   commands.push_back(apsides::cli::register_summarize(app));
   commands.push_back(apsides::cli::register_ephemeris(app));
+  commands.push_back(apsides::cli::register_stability(app));
   commands.push_back(apsides::cli::register_simulate(app));
   // Many runs: detection limits of one star, a survey of many (threads or MPI ranks).
   commands.push_back(apsides::cli::register_limits(app));

@@ -27,6 +27,7 @@ std::string to_string(BlockKind kind) {
     case BlockKind::kTransitJitter: return "transit_jitter";
     case BlockKind::kTransitEphemeris: return "transit_ephemeris";
     case BlockKind::kGaussianProcess: return "gaussian_process";
+    case BlockKind::kNbodyPlanet: return "nbody_planet";
   }
   return "unknown";
 }
@@ -193,7 +194,8 @@ std::vector<const InstrumentBlock*> ParameterLayout::instruments() const& {
 std::vector<const OrbitBlock*> ParameterLayout::orbits() const& {
   std::vector<const OrbitBlock*> out;
   for (const auto& b : blocks_)
-    if (b->kind() == BlockKind::kPlanet || b->kind() == BlockKind::kTransitEphemeris)
+    if (b->kind() == BlockKind::kPlanet || b->kind() == BlockKind::kTransitEphemeris ||
+        b->kind() == BlockKind::kNbodyPlanet)
       out.push_back(static_cast<const OrbitBlock*>(b.get()));
   return out;
 }
