@@ -3,12 +3,14 @@
 // loads its data (counts checked against the CSV files read by Python's csv module).
 #include <doctest/doctest.h>
 
+#include <cmath>
 #include <filesystem>
 #include <map>
 #include <set>
 #include <nlohmann/json.hpp>
 #include <string>
 
+#include "apsides/error.h"
 #include "apsides/project.h"
 #include "test_support.h"
 
@@ -218,3 +220,36 @@ TEST_CASE("the demo project loads its three instruments and transit times as Pyt
 }
 
 }  // TEST_SUITE
+
+TEST_CASE("[noise]: a GP with its kernel, amplitude per instrument and rotation hint; one-line errors") {
+  const std::string base = "[[velocities]]\nfile = \"rv.csv\"\n";
+  const auto pr = apsides::parse_project(
+      base + "[noise]\nkind = \"gp\"\nkernel = \"quasi_periodic\"\nper_instrument_amplitude = true\nrotation_period_d = 27.5\n",
+      "p.toml", "/data");
+  CHECK(pr.model.noise.kind == apsides::NoiseKind::kGaussianProcess);
+  CHECK(pr.model.noise.kernel == apsides::gp::KernelKind::kQuasiPeriodic);
+  CHECK(pr.model.noise.per_instrument_amplitude);
+  CHECK(pr.model.rotation_hint_d == 27.5);
+  CHECK(pr.model.rotation_hint_source.find("p.toml") != std::string::npos);
+  // Default: white noise, no hint.
+  const auto white = apsides::parse_project(base, "p.toml", "/data");
+  CHECK(white.model.noise.kind == apsides::NoiseKind::kWhite);
+  CHECK(std::isnan(white.model.rotation_hint_d));
+  auto error_of = [&](const std::string& noise) {
+    try {
+      (void)apsides::parse_project(base + noise, "p.toml", "/data");
+    } catch (const apsides::InputError& e) {
+      return std::string(e.what());
+    }
+    return std::string("no error");
+  };
+  CHECK(error_of("[noise]\nkind = \"red\"\n").find("noise.kind") != std::string::npos);
+  CHECK(error_of("[noise]\nkind = \"gp\"\nkernel = \"spline\"\n").find("unknown kernel 'spline'") != std::string::npos);
+  CHECK(error_of("[noise]\nkind = \"gp\"\nrotation_period_d = -3\n").find("must be > 0") != std::string::npos);
+  CHECK(error_of("[noise]\nkernel = \"sho\"\n").find("kind is \"white\"") != std::string::npos);
+  CHECK(error_of("[noise]\nkind = \"gp\"\ncolour = 1\n").find("colour") != std::string::npos);
+  for (const std::string& e : {error_of("[noise]\nkind = \"red\"\n"), error_of("[noise]\nkernel = \"sho\"\n")}) {
+    CHECK(e.find("p.toml") != std::string::npos);
+    CHECK(e.find('\n') == std::string::npos);
+  }
+}

@@ -63,6 +63,28 @@ PeriodogramPanel panel_from(const PeriodogramResult& r, const VelocityData& d, c
   return p;
 }
 
+// 1b. Activity indicators: their periodograms stacked under the velocities' (shared period
+// axis), the velocity peaks they share, correlations.
+void indicator_stage(Run& run) {
+  if (run.data.indicators.empty()) return;
+  run.activity = analyze_activity(run.data, run.scan, run.periodogram, ActivityOptions{});
+  run.stage("indicators", run.activity.BriefReport());
+  if (run.activity.empty()) return;
+  std::vector<PeriodogramPanel> panels{panel_from(run.scan, run.data, "Velocities")};
+  for (const IndicatorPeriodogram& ip : run.activity.periodograms) {
+    PeriodogramPanel p = panel_from(ip.periodogram, run.data, "Indicator: " + ip.name);
+    p.fap_levels.clear();  // the velocities' FAP levels do not apply; each peak states its own
+    for (std::size_t i = 0; i < p.peaks.size(); ++i)
+      p.peaks[i].label = fmt::format("{:.4g} d, FAP {:.1g}", ip.periodogram.peaks[i].period_days, ip.periodogram.peaks[i].fap);
+    panels.push_back(p);
+  }
+  FigureOptions o = run.figures;
+  o.title = "Velocities and activity indicators: periodograms on one period axis";
+  o.height_px = std::max(800, 300 * static_cast<int>(panels.size()));
+  run.report_figures.push_back(
+      write_periodogram_steps_figure(panels, figure_path(run.fig_dir.string(), "indicators", o.format), o).path);
+}
+
 // 1. The periodogram of the velocities and its window function.
 void scan_stage(Run& run) {
   PeriodogramOptions& popt = run.periodogram;
@@ -83,6 +105,7 @@ void scan_stage(Run& run) {
   o.title = "Generalised Lomb–Scargle periodogram and window function";
   run.report_figures.push_back(
       write_periodogram_figure(pd, figure_path(run.fig_dir.string(), "periodogram", o.format), o).path);
+  indicator_stage(run);
 }
 
 // 2. The planet search, with the residual periodogram of each step.

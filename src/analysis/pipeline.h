@@ -8,6 +8,7 @@
 #include <utility>
 #include <vector>
 
+#include "apsides/activity.h"
 #include "apsides/analysis.h"
 #include "apsides/ephemeris.h"
 #include "apsides/fit.h"
@@ -28,6 +29,7 @@ struct Run {
   std::vector<std::string> report_figures;  // written so far, in report order
   PeriodogramOptions periodogram;
   PeriodogramResult scan;
+  ActivityResult activity;  // indicator periodograms, shared peaks, correlations (empty without indicators)
   SearchProblem problem;
   SearchResult search;
   CompareResult comparison;

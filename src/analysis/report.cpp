@@ -53,6 +53,43 @@ void planets_section(const Run& run, std::ostringstream& md) {
   md << ".\n\n";
 }
 
+void activity_section(const Run& run, std::ostringstream& md) {
+  const ActivityResult& a = run.activity;
+  const bool gp = run.project.model.noise.kind == NoiseKind::kGaussianProcess;
+  if (a.empty() && !gp) return;
+  md << "## Stellar activity\n\n" << figure_links(run, "indicators", "indicator periodograms");
+  for (const IndicatorPeriodogram& ip : a.periodograms) {
+    md << fmt::format("- **{}** ({} values{}): strongest peaks", ip.name, ip.n_points, ip.weighted ? "" : ", unweighted");
+    for (const Peak& p : ip.periodogram.peaks) md << fmt::format(" {:.4g} d (FAP {:.2g})", p.period_days, p.fap);
+    md << "\n";
+  }
+  for (const SharedSignal& sh : a.shared)
+    md << fmt::format("- Velocity peak at {:.5g} d: {}.\n", sh.velocity_period_days, sh.note());
+  if (std::isfinite(a.rotation_hint_days))
+    md << fmt::format("- Likely rotation signal: {:.4g} d ({}).\n", a.rotation_hint_days, a.rotation_hint_source);
+  if (!a.correlations.empty()) {
+    md << "\n| indicator | instrument | n | Pearson r | p | Spearman ρ | p |\n|---|---|---|---|---|---|---|\n";
+    for (const IndicatorCorrelation& c : a.correlations)
+      md << fmt::format("| {} | {} | {} | {:.3f} | {:.2g} | {:.3f} | {:.2g} |\n", c.indicator, c.instrument, c.n,
+                        c.pearson_r, c.pearson_p, c.spearman_rho, c.spearman_p);
+  }
+  md << "\n";
+  if (gp) {
+    md << fmt::format("Noise model: Gaussian process, {} kernel, on top of each instrument's jitter.",
+                      gp::to_string(run.project.model.noise.kernel));
+    if (std::isfinite(run.problem.model.rotation_hint_d))
+      md << fmt::format(" Its rotation-period prior is centred on {:.4g} d ({}).", run.problem.model.rotation_hint_d,
+                        run.problem.model.rotation_hint_source);
+    md << "\n\n";
+  }
+  const double prot = std::isfinite(run.problem.model.rotation_hint_d) ? run.problem.model.rotation_hint_d : a.rotation_hint_days;
+  for (int p = 0; p < run.summary.n_planets; ++p)
+    if (const SummaryRow* r = run.summary.find(planet_label(p) + ".period_d"))
+      if (const std::string c = rotation_caution(r->q.median, prot); !c.empty())
+        md << fmt::format("**Planet {}:** {}.\n\n", planet_label(p), c);
+  md << "A signal at the star's rotation period or its harmonics is suspect: spots and faculae make them.\n\n";
+}
+
 void search_section(const Run& run, std::ostringstream& md) {
   md << "\n## Periodogram and planet search\n\n" << figure_links(run, "periodogram", "periodogram");
   md << "| step | planets | ln L | BIC | AICc | admitted by (period, FAP) |\n|---|---|---|---|---|---|\n";
@@ -121,6 +158,7 @@ std::string report_markdown(const Run& run) {
     md << fmt::format("| {} | {} | {} |\n", n, o ? fmt_q(o->q) : "—", j ? fmt_q(j->q) : "—");
   }
   search_section(run, md);
+  activity_section(run, md);
   md << "## Orbits\n\n" << figure_links(run, "velocities", "velocities") << figure_links(run, "phase_folds", "phase folds");
   for (int p = 0; p < run.summary.n_planets; ++p)
     md << figure_links(run, "corner_" + planet_label(p), "corner " + planet_label(p));
