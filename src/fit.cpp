@@ -10,6 +10,7 @@
 #include <limits>
 #include <memory>
 #include <nlopt.hpp>
+#include <functional>
 #include <numeric>
 
 #include "apsides/constants.h"
@@ -324,6 +325,8 @@ std::string SearchOptions::Validate() const {
   if (max_planets < 0) return fmt::format("max_planets = {}: must be >= 0", max_planets);
   if (!(min_bic_improvement >= 0.0) || !std::isfinite(min_bic_improvement))
     return fmt::format("min_bic_improvement = {}: must be >= 0", min_bic_improvement);
+  if (!(max_point_share > 0.0 && max_point_share <= 1.0))
+    return fmt::format("max_point_share = {}: must be in (0, 1]", max_point_share);
   if (!(fap_threshold > 0.0 && fap_threshold < 1.0))
     return fmt::format("fap_threshold = {}: must be in (0, 1)", fap_threshold);
   return fit.Validate();
@@ -357,6 +360,21 @@ Residuals residuals_of(const FitProblem& pb, const std::vector<double>& theta) {
   Residuals out;
   model.velocities()->residuals(theta, true, out.r, out.sigma);
   return out;
+}
+
+// The share of a new planet's chi-square gain, sum_i (r_prev,i^2 - r_new,i^2) / sigma_i^2
+// (sigma with the new fit's jitter), that its kLeveragePoints most improved points give.
+constexpr int kLeveragePoints = 3;
+double top_point_share(const Residuals& before, const Residuals& after) {
+  std::vector<double> gain(after.r.size());
+  double total = 0.0;
+  for (std::size_t i = 0; i < gain.size(); ++i) {
+    gain[i] = (before.r[i] * before.r[i] - after.r[i] * after.r[i]) / (after.sigma[i] * after.sigma[i]);
+    total += gain[i];
+  }
+  if (!(total > 0.0) || gain.size() <= 4 * static_cast<std::size_t>(kLeveragePoints)) return 0.0;
+  std::partial_sort(gain.begin(), gain.begin() + kLeveragePoints, gain.end(), std::greater<>());
+  return std::accumulate(gain.begin(), gain.begin() + kLeveragePoints, 0.0) / total;
 }
 
 struct ResidualScan {
@@ -867,6 +885,14 @@ SearchResult search_planets(const SearchProblem& sp, const SearchOptions& opt) {
           "stopped at {} planet(s): a planet at the residual peak (P = {:.5g} d, FAP {:.3g}) improves the velocities' "
           "BIC by {:.1f} < {:g}.",
           k - 1, sc.peak_periods[0], sc.best_fap, gain, opt.min_bic_improvement);
+      break;
+    }
+    if (const double share = top_point_share(residuals_of(prev_pb, prev.theta), residuals_of(make_fit_problem(sp, k), fk.theta));
+        share > opt.max_point_share) {
+      out.message += fmt::format(
+          "stopped at {} planet(s): a planet at the residual peak (P = {:.5g} d, FAP {:.3g}) takes {:.0f} % of its "
+          "chi-square gain from {} points (> {:.0f} %): a few outlying points, not a periodic signal.",
+          k - 1, sc.peak_periods[0], sc.best_fap, 100.0 * share, kLeveragePoints, 100.0 * opt.max_point_share);
       break;
     }
     swapped = false;

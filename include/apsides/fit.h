@@ -159,6 +159,10 @@ struct SearchOptions {
   // ... and only when the fit with the new planet lowers the velocities' BIC by at
   // least this much (>= 0; 10 is "very strong" on the scale of Kass & Raftery 1995).
   double min_bic_improvement = 10.0;
+  // ... and only when its 3 most improved points give at most this share of its chi-square
+  // gain (common practice: a "planet" that a few outlying points make is not a periodic
+  // signal; a sinusoid over N points spreads its gain over all of them).
+  double max_point_share = 0.5;
   FitOptions fit;                  // for every step's fit
 
   std::string Validate() const;
