@@ -893,6 +893,7 @@ SearchResult search_planets(const SearchProblem& sp, const SearchOptions& opt) {
           "stopped at {} planet(s): a planet at the residual peak (P = {:.5g} d, FAP {:.3g}) takes {:.0f} % of its "
           "chi-square gain from {} points (> {:.0f} %): a few outlying points, not a periodic signal.",
           k - 1, sc.peak_periods[0], sc.best_fap, 100.0 * share, kLeveragePoints, 100.0 * opt.max_point_share);
+      out.stopped_by_outliers = true;
       break;
     }
     swapped = false;

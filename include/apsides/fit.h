@@ -183,6 +183,9 @@ struct SearchResult {
   std::vector<SearchStep> steps;   // one per accepted model, 0, 1, ... planets
   std::vector<FitResult> fits;     // the fit of each step
   int selected_n_planets = 0;
+  // The search stopped because the next planet's chi-square gain came from a few points
+  // (SearchOptions::max_point_share): a larger model is then not worth comparing.
+  bool stopped_by_outliers = false;
   // Strongest residual peak after the last accepted step (why the search stopped).
   double final_peak_fap = std::numeric_limits<double>::quiet_NaN();
   double final_peak_period_days = std::numeric_limits<double>::quiet_NaN();

@@ -159,7 +159,10 @@ void compare_stage(Run& run) {
   const int found = run.search.selected_n_planets;
   CompareOptions copt;
   copt.min_planets = std::max(0, found - 1);
-  copt.max_planets = std::max(std::min(run.project.search.max_planets, found + 1), copt.min_planets);
+  // found + 1 is compared too, unless the search refused that planet as a few outlying
+  // points: evidence alone would then reward a spike orbit through them.
+  const int beyond = run.search.stopped_by_outliers ? 0 : 1;
+  copt.max_planets = std::max(std::min(run.project.search.max_planets, found + beyond), copt.min_planets);
   copt.nested.live_points = run.options.live_points > 0 ? run.options.live_points : run.project.evidence.live_points;
   copt.nested.seed = run.project.evidence.seed;
   copt.nested.threads = run.options.threads;
@@ -184,6 +187,10 @@ void compare_stage(Run& run) {
   }
   run.n_planets = run.comparison.selected_n_planets;
   run.out.decision = decision_text(run.comparison, run.n_planets);
+  if (run.search.stopped_by_outliers)
+    run.out.decision += fmt::format(" A model with {} planets was not compared: the search found its extra planet made by a few "
+                                    "outlying points.",
+                                    found + 1);
   run.stage("compare", run.comparison.BriefReport());
 }
 
