@@ -289,6 +289,45 @@ std::vector<std::size_t> find_peaks(const std::vector<double>& v, std::size_t co
   return out;
 }
 
+// Bootstrap FAPs of r's peaks: (velocity, uncertainty) pairs redrawn with replacement within each
+// instrument, times kept; FAP = fraction of replicates whose highest power on the grid
+// reaches the peak's. Replicate b uses its own generator seeded from (seed, b), and
+// replicates are spread over threads, so the result does not depend on the thread count.
+void bootstrap_faps(const Prepared& p, const PeriodogramOptions& options, const FrequencyGrid& grid, bool fast,
+                    PeriodogramResult& r) {
+  const std::size_t n = p.t_raw.size();
+  const int B = options.bootstrap;
+  std::vector<double> maxima(static_cast<std::size_t>(B));
+  const int nt = std::max(1, std::min(detail::resolve_threads(options.threads), B));
+  std::vector<std::vector<std::size_t>> members(static_cast<std::size_t>(p.n_groups));
+  for (std::size_t i = 0; i < n; ++i) members[static_cast<std::size_t>(p.group[i])].push_back(i);
+  auto work = [&](int w) {
+    std::vector<double> y(n), dy(n), pw(grid.nf);
+    for (int b = w; b < B; b += nt) {
+      std::seed_seq ss{static_cast<unsigned>(options.seed & 0xffffffffu), static_cast<unsigned>(options.seed >> 32),
+                       static_cast<unsigned>(b)};
+      std::mt19937_64 rng(ss);
+      for (const auto& mem : members) {
+        std::uniform_int_distribution<std::size_t> pick(0, mem.size() - 1);
+        for (std::size_t i : mem) {
+          const std::size_t src = mem[pick(rng)];
+          y[i] = p.y_raw[src];
+          dy[i] = p.dy_raw[src];
+        }
+      }
+      const GlsData d = detail::prepare_gls(p.t_raw, y, dy, p.group, p.n_groups);
+      engine_power(d, grid.f0, grid.df, grid.nf, fast, 1, pw.data(), nullptr);
+      maxima[static_cast<std::size_t>(b)] = *std::max_element(pw.begin(), pw.end());
+    }
+  };
+  std::vector<std::thread> pool;
+  for (int w = 0; w < nt; ++w) pool.emplace_back(work, w);
+  for (auto& th : pool) th.join();
+  for (Peak& pk : r.peaks) {
+    const auto hits = std::count_if(maxima.begin(), maxima.end(), [&](double m) { return m >= pk.power_standard; });
+    pk.fap_bootstrap = static_cast<double>(hits) / B;
+  }
+}
 PeriodogramResult run(const Prepared& p, const VelocityData& data, const PeriodogramOptions& options) {
   if (const std::string err = options.Validate(); !err.empty()) throw InputError("periodogram options: " + err);
   const std::size_t n = p.t_raw.size();
@@ -381,43 +420,7 @@ PeriodogramResult run(const Prepared& p, const VelocityData& data, const Periodo
     }
   }
 
-  // Bootstrap: (velocity, uncertainty) pairs redrawn with replacement within each
-  // instrument, times kept; FAP = fraction of replicates whose highest power on the grid
-  // reaches the peak's. Replicate b uses its own generator seeded from (seed, b), and
-  // replicates are spread over threads, so the result does not depend on the thread count.
-  if (options.bootstrap > 0) {
-    const int B = options.bootstrap;
-    std::vector<double> maxima(static_cast<std::size_t>(B));
-    const int nt = std::max(1, std::min(detail::resolve_threads(options.threads), B));
-    std::vector<std::vector<std::size_t>> members(static_cast<std::size_t>(p.n_groups));
-    for (std::size_t i = 0; i < n; ++i) members[static_cast<std::size_t>(p.group[i])].push_back(i);
-    auto work = [&](int w) {
-      std::vector<double> y(n), dy(n), pw(grid.nf);
-      for (int b = w; b < B; b += nt) {
-        std::seed_seq ss{static_cast<unsigned>(options.seed & 0xffffffffu), static_cast<unsigned>(options.seed >> 32),
-                         static_cast<unsigned>(b)};
-        std::mt19937_64 rng(ss);
-        for (const auto& mem : members) {
-          std::uniform_int_distribution<std::size_t> pick(0, mem.size() - 1);
-          for (std::size_t i : mem) {
-            const std::size_t src = mem[pick(rng)];
-            y[i] = p.y_raw[src];
-            dy[i] = p.dy_raw[src];
-          }
-        }
-        const GlsData d = detail::prepare_gls(p.t_raw, y, dy, p.group, p.n_groups);
-        engine_power(d, grid.f0, grid.df, grid.nf, fast, 1, pw.data(), nullptr);
-        maxima[static_cast<std::size_t>(b)] = *std::max_element(pw.begin(), pw.end());
-      }
-    };
-    std::vector<std::thread> pool;
-    for (int w = 0; w < nt; ++w) pool.emplace_back(work, w);
-    for (auto& th : pool) th.join();
-    for (Peak& pk : r.peaks) {
-      const auto hits = std::count_if(maxima.begin(), maxima.end(), [&](double m) { return m >= pk.power_standard; });
-      pk.fap_bootstrap = static_cast<double>(hits) / B;
-    }
-  }
+  if (options.bootstrap > 0) bootstrap_faps(p, options, grid, fast, r);
   r.success = true;
   r.message = fmt::format("{} periodogram of {} points, {} frequencies from {:.6g} to {:.6g} per day", r.method_used, n,
                           grid.nf, grid.f0, r.max_frequency_per_day);
